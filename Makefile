@@ -1,0 +1,32 @@
+# noisecal — every target sets itself up from a machine with only Python 3.11+ and make.
+PYTHON ?= python3
+VENV   := .venv
+BIN    := $(VENV)/bin
+STAMP  := $(VENV)/.installed
+
+.PHONY: demo test test-slow demo-data clean
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+## Run the static characterisation on the committed demo recording; writes reports/.
+demo: $(STAMP)
+	$(BIN)/noisecal demo
+
+## Fast suite (a few minutes): external checks, bad inputs, small coverage set.
+test: $(STAMP)
+	$(BIN)/python -m pytest -q
+
+## Long statistical runs: coverage over >= 400 seeded simulations.
+test-slow: $(STAMP)
+	$(BIN)/python -m pytest -q -m slow
+
+## Regenerate recordings/ from the committed script (fixed seed).
+demo-data: $(STAMP)
+	$(BIN)/python tools/make_demo_recordings.py
+
+clean:
+	rm -rf $(VENV) build *.egg-info .pytest_cache

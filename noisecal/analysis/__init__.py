@@ -1,0 +1,1 @@
+"""Analysis: statistics of data (Allan-family deviations, EDF, PSD). Knows nothing of filters."""

@@ -1,0 +1,77 @@
+"""Command line: parse arguments, call a job, turn errors into one line and status 2."""
+
+from __future__ import annotations
+
+import argparse
+import shlex
+import sys
+
+from . import __version__
+from .errors import NoisecalError
+
+EXIT_ERROR = 2
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="noisecal", description=(
+        "Noise models with 95 % intervals, and the Q and R a Kalman filter needs, "
+        "from sensor recordings."))
+    p.add_argument("--version", action="version", version=f"noisecal {__version__}")
+    sub = p.add_subparsers(dest="command", required=True)
+
+    s = sub.add_parser("static", help="characterise a recording made at rest")
+    s.add_argument("recording", help="CSV, Parquet or .npz; columns 'name [unit]', time first")
+    s.add_argument("-o", "--output", required=True, help="YAML block to write")
+    s.add_argument("--dt", type=float, help="filter time step, s (default: sample period)")
+    s.add_argument("--channels", help="comma-separated channels, in filter order")
+    s.add_argument("--plot", help="PNG path (default: beside the YAML)")
+    s.add_argument("--repair", choices=["sort", "drop"],
+                   help="repair timestamps that are not increasing (recorded in provenance)")
+    s.add_argument("--reps", type=int, default=200, help="bootstrap replicates (default 200)")
+    s.add_argument("--seed", type=int, default=1, help="bootstrap seed (default 1)")
+    s.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    s.add_argument("--quiet", action="store_true", help="no progress bar")
+
+    i = sub.add_parser("inspect", help="describe a recording and the problems found")
+    i.add_argument("recording")
+    i.add_argument("--repair", choices=["sort", "drop"])
+
+    d = sub.add_parser("demo", help="run the committed demo recording into reports/demo")
+    d.add_argument("--quiet", action="store_true")
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``noisecal`` console script; returns the exit status."""
+    argv = sys.argv[1:] if argv is None else argv
+    args = _parser().parse_args(argv)
+    command = "noisecal " + shlex.join(argv)
+    try:
+        if args.command == "static":
+            from .jobs.static import run_static, summary
+
+            channels = [c.strip() for c in args.channels.split(",")] if args.channels else None
+            result = run_static(args.recording, args.output, args.plot, args.dt, channels,
+                                args.repair, args.overwrite, args.reps, args.seed,
+                                args.quiet, command)
+            print(summary(result))
+            print(f"wrote {args.output}")
+        elif args.command == "inspect":
+            from .jobs.inspect import run_inspect
+
+            print(run_inspect(args.recording, args.repair))
+        elif args.command == "demo":
+            from .jobs.demo import run_demo
+
+            print(run_demo(quiet=args.quiet))
+    except NoisecalError as exc:
+        print(f"noisecal: error: {exc}", file=sys.stderr)
+        return EXIT_ERROR
+    except KeyboardInterrupt:
+        print("noisecal: interrupted; nothing was written", file=sys.stderr)
+        return 130
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,1 @@
+"""Export: what the user keeps (YAML block, plots), written atomically."""

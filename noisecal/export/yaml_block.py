@@ -1,0 +1,105 @@
+"""The static characterisation's YAML block: commented, versioned, includable.
+
+Numbers are SI, rounded to six significant digits. The layout is noisecal's
+own; its version is in ``layout``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import yaml
+
+from ..types import Estimate, FilterBlock, Recording
+
+LAYOUT = "noisecal.static/1"
+
+
+def num(x) -> float | None:
+    """A float rounded to six significant digits (None for NaN/None)."""
+    if x is None:
+        return None
+    x = float(x)
+    if not np.isfinite(x):
+        return None
+    return float(f"{x:.6g}")
+
+
+def matrix(a: np.ndarray) -> list:
+    """A 2-D array as a list of lists of rounded floats."""
+    return [[num(v) for v in row] for row in np.asarray(a)]
+
+
+def estimate(e: Estimate) -> dict:
+    """An Estimate as ``{value, ci95, unit, ...}`` or ``{upper_bound, unit, ...}``."""
+    if e.resolved:
+        out = {"value": num(e.value), "ci95": [num(e.lower), num(e.upper)], "unit": e.unit}
+    else:
+        out = {"upper_bound": num(e.upper), "unit": e.unit}
+    if e.tau_range is not None:
+        out["tau_s"] = [num(e.tau_range[0]), num(e.tau_range[1])]
+    out["method"] = e.method
+    return out
+
+
+def recording_section(rec: Recording) -> dict:
+    """Facts of the recording: rate, jitter, gaps, saturation."""
+    return {
+        "samples": rec.n,
+        "channels": list(rec.channels),
+        "duration_s": num(rec.duration),
+        "sample_period_s": num(rec.period),
+        "rate_hz": num(1.0 / rec.period),
+        "jitter_s": num(rec.jitter),
+        "gaps": [{"start_s": num(g.start_s), "length_s": num(g.length_s),
+                  "missing_samples": g.missing} for g in rec.gaps],
+        "saturated": [{"channel": s.channel, "start_s": num(s.start_s), "samples": s.samples,
+                       "value": num(s.value)} for s in rec.saturated],
+    }
+
+
+def filter_section(fb: FilterBlock) -> dict:
+    """The filter matrices with their intervals."""
+    def vec(a):
+        return [num(v) for v in a]
+    return {
+        "dt": num(fb.dt),
+        "order": list(fb.order),
+        "units": list(fb.units),
+        "R": matrix(fb.R),
+        "R_ci95": {"low": matrix(fb.R_low), "high": matrix(fb.R_high)},
+        "Q_input": matrix(fb.Q_input),
+        "Q_input_ci95": {"low": matrix(fb.Q_input_low), "high": matrix(fb.Q_input_high)},
+        "Q_bias": matrix(fb.Q_bias),
+        "Q_bias_ci95": {"low": matrix(fb.Q_bias_low), "high": matrix(fb.Q_bias_high)},
+        "Q_bias_from_bound": list(fb.Q_bias_is_bound),
+        "gauss_markov": {"phi": vec(fb.gm_phi), "q": vec(fb.gm_q),
+                         "q_range95": {"low": vec(fb.gm_q_low), "high": vec(fb.gm_q_high)}},
+        "continuous": {"white_psd": vec(fb.white_psd), "bias_rw_psd": vec(fb.bias_rw_psd)},
+        "notes": list(fb.notes),
+    }
+
+
+_COMMENTS = {
+    "provenance": "Where these numbers came from.",
+    "recording": "The recording as validated at ingest (SI; times in s from the first sample).",
+    "channels": ("Noise terms per channel (IEEE Std 952): value and 95 % interval, or an\n"
+                 "upper bound where the data cannot resolve the term. tau_s: averaging\n"
+                 "times that constrain the term."),
+    "filter": ("Discrete-time matrices for step dt over 'order' (SI, diagonal).\n"
+               "R = N^2/dt (channel as a measurement); Q_input = N^2*dt (channel\n"
+               "integrated in the prediction); Q_bias = K^2*dt (bias random-walk state).\n"
+               "A starting point for tuning: confirm on the real system."),
+}
+
+
+def render(sections: dict) -> str:
+    """YAML text with a comment above each top-level section."""
+    lines = [f"# noisecal static characterisation ({LAYOUT})",
+             "# Values are SI. Intervals are 95 % unless stated.", ""]
+    for key, value in sections.items():
+        for c in _COMMENTS.get(key, "").splitlines():
+            lines.append(f"# {c}")
+        lines.append(yaml.safe_dump({key: value}, sort_keys=False, default_flow_style=None,
+                                    allow_unicode=True, width=100).rstrip())
+        lines.append("")
+    return "\n".join(lines)

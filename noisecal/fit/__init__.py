@@ -1,0 +1,1 @@
+"""Fit: statistics → noise models with intervals → discrete-time Q and R."""

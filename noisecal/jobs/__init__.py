@@ -1,0 +1,1 @@
+"""Jobs: one module per thing a user comes to do, each a short pipeline."""

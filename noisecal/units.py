@@ -1,0 +1,167 @@
+"""Unit parsing with pint: once, at ingest, into SI.
+
+Sensor headers use a few conventions that differ from pint's defaults:
+``g`` is standard gravity (9.80665 m/s², 3rd CGPM 1901), not the gram, and
+``mg``/``ug`` are milli-/micro-g; ``dps`` is degrees per second. A unit with
+a mass dimension is therefore never produced by a header.
+"""
+
+from __future__ import annotations
+
+import re
+from functools import lru_cache
+
+import numpy as np
+import pint
+
+from .errors import UnitError
+
+STANDARD_GRAVITY = 9.80665  # m/s², 3rd CGPM (1901)
+
+_HEADER = re.compile(r"^\s*(?P<name>[^\[\]]*?)\s*\[(?P<unit>[^\[\]]*)\]\s*$")
+_G_TOKEN = re.compile(r"(?<![A-Za-z_µ])(?P<prefix>m|u|µ)?g(?![A-Za-z_0-9])")
+_PREFIX = {None: "", "m": "milli", "u": "micro", "µ": "micro"}
+
+
+@lru_cache(maxsize=1)
+def registry() -> pint.UnitRegistry:
+    """The project's unit registry (pint defaults plus sensor conventions)."""
+    ureg = pint.UnitRegistry()
+    ureg.define("sensor_gravity = 9.80665 m/s^2")
+    ureg.define("dps = degree / second")
+    return ureg
+
+
+def _to_pint_text(unit: str) -> str:
+    text = unit.strip().replace("√", "sqrt").replace("°", "deg")
+    return _G_TOKEN.sub(lambda mt: _PREFIX[mt.group("prefix")] + "sensor_gravity", text)
+
+
+def split_header(cell: str, where: str) -> tuple[str, str]:
+    """Split a header cell ``name [unit]`` into name and unit text.
+
+    Parameters
+    ----------
+    cell : str
+        The header cell, e.g. ``"gyro_x [deg/s]"``.
+    where : str
+        Location for the error message (file and column).
+
+    Raises
+    ------
+    UnitError
+        When the cell has no ``[unit]`` or no name.
+    """
+    mt = _HEADER.match(cell)
+    if mt is None or not mt.group("name"):
+        raise UnitError(
+            f"{where}: header cell {cell!r} has no unit; write it as 'name [unit]', "
+            "e.g. 'gyro_x [deg/s]' or 'count [1]' for a plain number")
+    if not mt.group("unit").strip():
+        raise UnitError(f"{where}: header cell {cell!r} has an empty unit; "
+                        "write the unit between the brackets, e.g. [deg/s]")
+    return mt.group("name"), mt.group("unit").strip()
+
+
+def parse_unit(unit: str, where: str) -> pint.Unit:
+    """Parse unit text into a pint unit, with the sensor conventions applied."""
+    ureg = registry()
+    try:
+        parsed = ureg.parse_units(_to_pint_text(unit))
+    except Exception:  # pint raises several unrelated types for bad text
+        raise UnitError(f"{where}: unknown unit {unit!r}; use a unit such as "
+                        "s, ns, deg/s, rad/s, g, m/s^2, rpm or 1") from None
+    return parsed
+
+
+def to_si(values: np.ndarray, unit: str, where: str) -> tuple[np.ndarray, str]:
+    """Convert values in ``unit`` to SI base units.
+
+    Parameters
+    ----------
+    values : ndarray, shape (n,)
+        Values in the given unit.
+    unit : str
+        Unit text as written in the file.
+    where : str
+        Location for error messages.
+
+    Returns
+    -------
+    si_values : ndarray, shape (n,)
+        Values in SI base units (angles in rad).
+    si_unit : str
+        The SI unit, pint-parsable (``"1"`` for dimensionless).
+    """
+    parsed = parse_unit(unit, where)
+    q = registry().Quantity(np.asarray(values, dtype=np.float64), parsed).to_base_units()
+    text = f"{q.units:~C}" or "1"
+    return np.asarray(q.magnitude, dtype=np.float64), text
+
+
+def time_scale(unit: str, where: str) -> float:
+    """Seconds per one unit of a time column; error if the unit is not a time."""
+    parsed = parse_unit(unit, where)
+    q = registry().Quantity(1.0, parsed)
+    if q.dimensionality != registry().Quantity(1.0, "s").dimensionality:
+        raise UnitError(f"{where}: the time column's unit {unit!r} is not a time; "
+                        "use [s] or [ns]")
+    return float(q.to("s").magnitude)
+
+
+def derived_unit(si_unit: str, kind: str) -> str:
+    """Unit of a noise coefficient for a channel of SI unit ``si_unit``.
+
+    Parameters
+    ----------
+    si_unit : str
+        Channel unit, e.g. ``"rad/s"``.
+    kind : str
+        One of ``quantization`` (u·s), ``white_noise`` (u/√Hz),
+        ``bias_instability`` (u), ``bias_random_walk`` (u·√Hz),
+        ``rate_ramp`` (u/s), ``white_psd`` (u²/Hz), ``bias_rw_psd`` (u²·Hz),
+        ``variance`` (u²), ``time`` (s).
+    """
+    u = si_unit if si_unit != "1" else ""
+    paren = f"({u})" if ("/" in u or "*" in u) else u
+    table = {
+        "quantization": f"{u}*s" if u else "s",
+        "white_noise": f"{u}/Hz^0.5" if u else "1/Hz^0.5",
+        "bias_instability": u or "1",
+        "bias_random_walk": f"{u}*Hz^0.5" if u else "Hz^0.5",
+        "rate_ramp": f"{u}/s" if u else "1/s",
+        "white_psd": f"{paren}^2/Hz" if u else "1/Hz",
+        "bias_rw_psd": f"{paren}^2*Hz" if u else "Hz",
+        "variance": f"{paren}^2" if u else "1",
+        "time": "s",
+    }
+    return table[kind]
+
+
+def convert(value: float, from_unit: str, to_unit: str) -> float:
+    """Convert a number between pint-parsable units (used for display only)."""
+    ureg = registry()
+    return float(ureg.Quantity(value, _to_pint_text(from_unit)).to(_to_pint_text(to_unit)).magnitude)
+
+
+CUSTOMARY = {
+    ("rad/s", "white_noise"): "deg/h^0.5",
+    ("rad/s", "bias_instability"): "deg/h",
+    ("rad/s", "bias_random_walk"): "deg/h^1.5",
+    ("rad/s", "quantization"): "deg",
+    ("rad/s", "rate_ramp"): "deg/h^2",
+    ("m/s**2", "white_noise"): "m/s/h^0.5",
+    ("m/s**2", "bias_instability"): "mg",
+    ("m/s**2", "bias_random_walk"): "m/s/h^1.5",
+    ("m/s**2", "quantization"): "m/s",
+    ("m/s**2", "rate_ramp"): "mg/h",
+}
+"""Units the inertial trade quotes datasheets in, for display beside SI."""
+
+
+def customary(value: float, si_unit: str, term: str) -> str | None:
+    """The value in the trade's customary unit, e.g. ``"0.15 deg/h^0.5"``, or None."""
+    target = CUSTOMARY.get((si_unit, term))
+    if target is None or value is None:
+        return None
+    return f"{convert(value, derived_unit(si_unit, term), target):.4g} {target}"
