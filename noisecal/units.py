@@ -120,22 +120,28 @@ def derived_unit(si_unit: str, kind: str) -> str:
         One of ``quantization`` (u·s), ``white_noise`` (u/√Hz),
         ``bias_instability`` (u), ``bias_random_walk`` (u·√Hz),
         ``rate_ramp`` (u/s), ``white_psd`` (u²/Hz), ``bias_rw_psd`` (u²·Hz),
-        ``variance`` (u²), ``time`` (s).
+        ``variance`` (u²), ``input_variance`` ((u·s)²), ``time`` (s).
     """
     u = si_unit if si_unit != "1" else ""
-    paren = f"({u})" if ("/" in u or "*" in u) else u
+    ureg = registry()
+    base = ureg.parse_units(_to_pint_text(si_unit))
+
+    def simplified(unit) -> str:
+        return f"{unit:~C}" or "1"
+
     table = {
-        "quantization": f"{u}*s" if u else "s",
-        "white_noise": f"{u}/Hz^0.5" if u else "1/Hz^0.5",
-        "bias_instability": u or "1",
-        "bias_random_walk": f"{u}*Hz^0.5" if u else "Hz^0.5",
-        "rate_ramp": f"{u}/s" if u else "1/s",
-        "white_psd": f"{paren}^2/Hz" if u else "1/Hz",
-        "bias_rw_psd": f"{paren}^2*Hz" if u else "Hz",
-        "variance": f"{paren}^2" if u else "1",
-        "time": "s",
+        "quantization": lambda: simplified(base * ureg.s),
+        "white_noise": lambda: f"{u}/Hz^0.5" if u else "1/Hz^0.5",
+        "bias_instability": lambda: u or "1",
+        "bias_random_walk": lambda: f"{u}*Hz^0.5" if u else "Hz^0.5",
+        "rate_ramp": lambda: simplified(base / ureg.s),
+        "white_psd": lambda: simplified(base ** 2) + "/Hz",
+        "bias_rw_psd": lambda: (simplified(base ** 2) + "*Hz") if u else "Hz",
+        "input_variance": lambda: simplified((base * ureg.s) ** 2),
+        "variance": lambda: simplified(base ** 2),
+        "time": lambda: "s",
     }
-    return table[kind]
+    return table[kind]()
 
 
 def convert(value: float, from_unit: str, to_unit: str) -> float:

@@ -10,6 +10,7 @@ import numpy as np
 import yaml
 
 from ..types import Estimate, FilterBlock, Recording
+from ..units import derived_unit
 
 LAYOUT = "noisecal.static/1"
 
@@ -65,6 +66,11 @@ def filter_section(fb: FilterBlock) -> dict:
         "dt": num(fb.dt),
         "order": list(fb.order),
         "units": list(fb.units),
+        "matrix_units": {
+            "R": [derived_unit(u, "variance") for u in fb.units],
+            "Q_input": [derived_unit(u, "input_variance") for u in fb.units],
+            "Q_bias": [derived_unit(u, "variance") for u in fb.units],
+        },
         "R": matrix(fb.R),
         "R_ci95": {"low": matrix(fb.R_low), "high": matrix(fb.R_high)},
         "Q_input": matrix(fb.Q_input),
