@@ -5,8 +5,8 @@ stationary std sigma and correlation time T. They are fitted to the same
 Allan variance curve as the IEEE terms, with white noise and quantization
 beside the Gauss–Markov term: for each T on a log grid the model is linear in
 [Q², N², sigma²] (weighted NNLS), and the T of least weighted misfit wins.
-Intervals come from refitting the bootstrap replicate curves of
-:mod:`noisecal.fit.ieee952`.
+Intervals come from a parametric bootstrap of the fitted Gauss–Markov model
+itself (white + quantization + Gauss–Markov), refitted the same way.
 
 References
 ----------
@@ -21,15 +21,16 @@ import numpy as np
 
 from ..types import AllanCurve, Estimate
 from ..units import derived_unit
-from .ieee952 import TermFit, pivot_interval, weighted_nnls
-from .simulate import basis, gm_avar
+from .ieee952 import pivot_interval, replicate_curves, weighted_nnls
+from .simulate import basis, gm_avar, simulate_rate
 
-GRID_POINTS = 48
+GRID_POINTS = 32
 
 
 def _fit_one(taus: np.ndarray, avar: np.ndarray, nu: np.ndarray, grid: np.ndarray):
+    """(c2 of quantization and white, sigma, T) of least weighted misfit over the T grid."""
     base = basis(taus)[:, :2]
-    best = (np.inf, 0.0, float(grid[0]))
+    best = (np.inf, np.zeros(2), 0.0, float(grid[0]))
     w0 = np.sqrt(nu / 2.0)
     for T in grid:
         A = np.column_stack([base, gm_avar(taus, 1.0, T)])
@@ -38,20 +39,29 @@ def _fit_one(taus: np.ndarray, avar: np.ndarray, nu: np.ndarray, grid: np.ndarra
         ref = np.where(model > 0, model, avar)
         cost = float(np.sum((w0 * (avar - model) / ref) ** 2))
         if cost < best[0]:
-            best = (cost, float(np.sqrt(c[2])), float(T))
-    return best[1], best[2]
+            best = (cost, c[:2], float(np.sqrt(c[2])), float(T))
+    return best[1], best[2], best[3]
 
 
-def fit_gauss_markov(curve: AllanCurve, terms: TermFit, level: float = 0.95) -> dict:
+def fit_gauss_markov(curve: AllanCurve, period: float, segments: list[tuple[int, int]],
+                     reps: int = 200, seed: int = 0, level: float = 0.95,
+                     progress=None) -> dict:
     """Gauss–Markov sigma and correlation time with bootstrap intervals.
 
     Parameters
     ----------
     curve : AllanCurve
-        The overlapping Allan deviation the IEEE terms were fitted to.
-    terms : TermFit
-        Holds the bootstrap replicate curves.
+        Overlapping Allan deviation on an octave grid.
+    period : float
+        Sample period, s.
+    segments : list of (start, stop)
+        Gap layout of the record.
+    reps : int
+        Bootstrap replicates.
+    seed : int
+        Bootstrap seed.
     level : float
+    progress : callable, optional
 
     Returns
     -------
@@ -61,16 +71,22 @@ def fit_gauss_markov(curve: AllanCurve, terms: TermFit, level: float = 0.95) -> 
     """
     taus = curve.taus
     grid = np.logspace(np.log10(taus[0]), np.log10(taus[-1] * 10.0), GRID_POINTS)
-    sigma, T = _fit_one(taus, curve.dev ** 2, curve.edf, grid)
+    c2, sigma, T = _fit_one(taus, curve.dev ** 2, curve.edf, grid)
     if sigma <= 0:
         return {}
-    boot = np.array([_fit_one(taus, s, curve.edf, grid) for s in terms.replicate_avar])
+    full = np.array([c2[0], c2[1], 0.0, 0.0, 0.0])
+    sims = replicate_curves(
+        lambda p, n, rng: simulate_rate(full, p, n, rng, gm=(sigma, T)),
+        lambda t: basis(t) @ full + gm_avar(t, sigma, T),
+        period, curve.m, segments, reps, seed, progress)
+    boot = np.array([_fit_one(taus, s, curve.edf, grid)[1:] for s in sims])
     ci_s = pivot_interval(sigma, boot[:, 0], level)
     ci_t = pivot_interval(T, boot[:, 1], level)
     if ci_s is None or ci_t is None:
         return {}
     method = (f"white + quantization + Gauss–Markov fitted to overlapping AVAR; "
-              f"interval by parametric bootstrap ({boot.shape[0]} replicates, seed {terms.seed})")
+              f"interval by parametric bootstrap of that model ({reps} replicates, "
+              f"seed {seed}), log pivot")
     return {
         "sigma": Estimate(sigma, ci_s[0], ci_s[1], derived_unit(curve.unit, "bias_instability"),
                           method, level),

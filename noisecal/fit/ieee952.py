@@ -124,7 +124,7 @@ class TermFit:
     seed: int
 
 
-def replicate_curves(c2: np.ndarray, period: float, m: np.ndarray,
+def replicate_curves(simulate, expected, period: float, m: np.ndarray,
                      segments: list[tuple[int, int]], reps: int, seed: int,
                      progress=None) -> np.ndarray:
     """Allan variance curves of records simulated from a fitted model.
@@ -133,15 +133,17 @@ def replicate_curves(c2: np.ndarray, period: float, m: np.ndarray,
     with the recording's gap layout. Longer records are simulated at two
     levels: short taus (m < 4d) from a fine record of ``FULL_SIM_MAX``
     samples whose deviations from the model are scaled by sqrt(terms there /
-    terms in the real record), long taus from a record of block averages at
-    period d·tau0 (d a power of two) and the full duration. Each term is
-    generated from its continuous coefficient, so block averaging keeps the
-    Allan variance at taus ≥ 4d·tau0.
+    terms in the real record), long taus from a record at period d·tau0 (d a
+    power of two) over the full duration. Each term is generated from its
+    continuous coefficient, so the coarse record keeps the Allan variance at
+    taus ≥ 4d·tau0; the gap layout is not reproduced at this level.
 
     Parameters
     ----------
-    c2 : ndarray, shape (5,)
-        Model coefficients.
+    simulate : callable
+        ``simulate(period, n, rng)`` → rate samples, shape (n,).
+    expected : callable
+        ``expected(taus)`` → model Allan variance, shape (k,).
     period : float
         Sample period, s.
     m : ndarray of int, shape (k,)
@@ -161,12 +163,10 @@ def replicate_curves(c2: np.ndarray, period: float, m: np.ndarray,
     """
     rng = np.random.default_rng(seed)
     n = int(sum(b - a for a, b in segments))
-    taus = m * period
     out = np.empty((reps, m.shape[0]))
     if n <= FULL_SIM_MAX:
         for r in range(reps):
-            y = simulate_rate(c2, period, n, rng)
-            dev, _ = deviation(y, period, m, "oadev", segments)
+            dev, _ = deviation(simulate(period, n, rng), period, m, "oadev", segments)
             out[r] = dev ** 2
             if progress:
                 progress(1)
@@ -174,15 +174,13 @@ def replicate_curves(c2: np.ndarray, period: float, m: np.ndarray,
     d = 2 ** int(np.ceil(np.log2(n / FULL_SIM_MAX)))
     fine = m < 4 * d
     coarse_m = m[~fine] // d
-    expected = basis(taus) @ c2
+    model = expected(m[fine] * period)
     length = FULL_SIM_MAX
     ratio = np.sqrt(np.maximum(length + 1 - 2 * m[fine], 1) / (n + 1 - 2 * m[fine]))
     for r in range(reps):
-        y = simulate_rate(c2, period, length, rng)
-        dev, _ = deviation(y, period, m[fine], "oadev")
-        out[r, fine] = expected[fine] + (dev ** 2 - expected[fine]) * ratio
-        yc = simulate_rate(c2, period * d, n // d, rng)
-        devc, _ = deviation(yc, period * d, coarse_m, "oadev")
+        dev, _ = deviation(simulate(period, length, rng), period, m[fine], "oadev")
+        out[r, fine] = model + (dev ** 2 - model) * ratio
+        devc, _ = deviation(simulate(period * d, n // d, rng), period * d, coarse_m, "oadev")
         out[r, ~fine] = devc ** 2
         if progress:
             progress(1)
@@ -213,7 +211,9 @@ def fit_terms(curve: AllanCurve, period: float, segments: list[tuple[int, int]],
     """
     A = basis(curve.taus)
     c2 = fit_model(A, curve.dev ** 2, curve.edf)
-    sims = replicate_curves(c2, period, curve.m, segments, reps, seed, progress)
+    sims = replicate_curves(lambda p, n, rng: simulate_rate(c2, p, n, rng),
+                            lambda t: basis(t) @ c2, period, curve.m, segments, reps,
+                            seed, progress)
     boot = np.array([fit_model(A, s, curve.edf) for s in sims])
     return TermFit(c2=c2, replicates=boot, replicate_avar=sims, seed=seed)
 

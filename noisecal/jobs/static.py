@@ -98,7 +98,8 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
     reps : int
         Bootstrap replicates per channel.
     seed : int
-        Bootstrap seed; channel i uses ``seed + i``.
+        Bootstrap seed: channel i uses ``seed + i`` for the IEEE terms and
+        ``seed + 1000 + i`` for the Gauss–Markov fit.
     quiet : bool
         Hide the progress bar.
     command : str
@@ -116,7 +117,7 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
     segments = rec.segments
     longest = max(segments, key=lambda s: s[1] - s[0])
     models, dense, psd = [], [], []
-    with progress_bar(total=reps * len(names), desc="bootstrap", quiet=quiet) as bar:
+    with progress_bar(total=2 * reps * len(names), desc="bootstrap", quiet=quiet) as bar:
         for i, name in enumerate(names):
             y = rec.channel(name)
             if np.ptp(y) == 0:
@@ -128,7 +129,9 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
                             progress=bar.update)
             models.append(ChannelModel(
                 channel=name, unit=unit, terms=term_estimates(fit, curve),
-                gauss_markov=fit_gauss_markov(curve, fit), curve=curve,
+                gauss_markov=fit_gauss_markov(curve, rec.period, segments, reps,
+                                              seed + 1000 + i, progress=bar.update),
+                curve=curve,
                 coefficients=fit.c2, seed=seed + i))
             dense.append(allan_curve(y, rec.period, unit, "oadev", "dense", segments))
             psd.append(white_level(y[longest[0]:longest[1]], rec.period))

@@ -1,0 +1,60 @@
+"""Unit conversion against pint and the published constants."""
+
+from __future__ import annotations
+
+import numpy as np
+import pint
+import pytest
+
+from noisecal.errors import UnitError
+from noisecal.units import convert, customary, split_header, time_scale, to_si
+
+
+def test_standard_gravity():
+    """g_n = 9.80665 m/s² exactly (3rd CGPM, 1901; ISO 80000-3); 'g' in a header is
+    gravity, not the gram."""
+    values, unit = to_si(np.array([1.0, -2.0]), "g", "t")
+    assert unit == "m/s**2"
+    np.testing.assert_array_equal(values, [9.80665, -19.6133])
+    assert to_si(np.array([1.0]), "mg", "t")[0][0] == pytest.approx(9.80665e-3, rel=1e-15)
+
+
+@pytest.mark.parametrize("unit, si, factor", [
+    ("deg/s", "rad/s", np.pi / 180), ("deg/h", "rad/s", np.pi / 180 / 3600),
+    ("rpm", "rad/s", 2 * np.pi / 60), ("m/s^2", "m/s**2", 1.0), ("mrad/s", "rad/s", 1e-3),
+])
+def test_against_pint(unit, si, factor):
+    """Reference library: pint's own conversion of the same unit to base units."""
+    values, got = to_si(np.array([1.5]), unit, "t")
+    ref = pint.UnitRegistry().Quantity(1.5, unit).to_base_units().magnitude
+    assert got == si
+    assert values[0] == pytest.approx(ref, rel=1e-14)
+    assert values[0] == pytest.approx(1.5 * factor, rel=1e-14)
+
+
+def test_angle_random_walk_constants():
+    """1 °/√h = (π/180)/60 rad/s/√Hz ≈ 2.9089e-4; 1 °/h ≈ 4.8481e-6 rad/s
+    (arithmetic from the definitions)."""
+    assert convert(1.0, "deg/h^0.5", "rad/s/Hz^0.5") == pytest.approx(np.pi / 180 / 60, rel=1e-12)
+    assert convert(1.0, "deg/h^0.5", "rad/s/Hz^0.5") == pytest.approx(2.9089e-4, rel=1e-4)
+    assert convert(1.0, "deg/h", "rad/s") == pytest.approx(4.8481e-6, rel=1e-4)
+    assert convert(1.0, "m/s/h^0.5", "m/s**2/Hz^0.5") == pytest.approx(1 / 60, rel=1e-12)
+    assert customary(2.9088820866572158e-4, "rad/s", "white_noise") == "1 deg/h^0.5"
+
+
+def test_time_units():
+    assert time_scale("ns", "t") == 1e-9
+    assert time_scale("ms", "t") == 1e-3
+    with pytest.raises(UnitError):
+        time_scale("m", "t")
+
+
+@pytest.mark.parametrize("cell", ["gyro_x", "gyro_x []", "[deg/s]", "gyro [deg/s"])
+def test_header_without_unit_is_refused(cell):
+    with pytest.raises(UnitError):
+        split_header(cell, "t")
+
+
+def test_unknown_unit_is_refused():
+    with pytest.raises(UnitError, match="unknown unit"):
+        to_si(np.array([1.0]), "furlongs per fortnite", "t")
