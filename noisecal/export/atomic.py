@@ -38,6 +38,9 @@ def atomic_path(path: Path):
     path = Path(path)
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".part", dir=path.parent)
     os.close(fd)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)  # mkstemp makes 0600; outputs get the usual mode
     try:
         yield Path(tmp)
         os.replace(tmp, path)

@@ -51,7 +51,7 @@ def _panel(ax, model: ChannelModel, dense: AllanCurve) -> None:
     ax.set_xlabel("averaging time τ [s]")
     ax.set_ylabel(f"Allan deviation [{model.unit}]")
     ax.grid(True, which="both", alpha=0.3)
-    ax.legend(fontsize=6.5, loc="lower left")
+    ax.legend(fontsize=6.5, loc="upper left", bbox_to_anchor=(0.0, -0.16), frameon=False)
 
 
 def allan_figure(models: list[ChannelModel], dense: list[AllanCurve], path: Path,
@@ -71,7 +71,7 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve], path: Path
     """
     cols = min(3, len(models))
     rows = int(np.ceil(len(models) / cols))
-    fig, axes = plt.subplots(rows, cols, figsize=(5.6 * cols, 4.6 * rows), squeeze=False)
+    fig, axes = plt.subplots(rows, cols, figsize=(5.8 * cols, 6.4 * rows), squeeze=False)
     for ax, model, curve in zip(axes.flat, models, dense):
         _panel(ax, model, curve)
     for ax in list(axes.flat)[len(models):]:

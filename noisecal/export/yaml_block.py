@@ -98,6 +98,18 @@ _COMMENTS = {
 }
 
 
+class _Dumper(yaml.SafeDumper):
+    """Block mappings; lists of scalars (intervals, matrix rows) in flow style."""
+
+
+def _represent_list(dumper, data):
+    flow = all(not isinstance(v, (dict, list)) for v in data)
+    return dumper.represent_sequence("tag:yaml.org,2002:seq", data, flow_style=flow)
+
+
+_Dumper.add_representer(list, _represent_list)
+
+
 def render(sections: dict) -> str:
     """YAML text with a comment above each top-level section."""
     lines = [f"# noisecal static characterisation ({LAYOUT})",
@@ -105,7 +117,7 @@ def render(sections: dict) -> str:
     for key, value in sections.items():
         for c in _COMMENTS.get(key, "").splitlines():
             lines.append(f"# {c}")
-        lines.append(yaml.safe_dump({key: value}, sort_keys=False, default_flow_style=None,
-                                    allow_unicode=True, width=100).rstrip())
+        lines.append(yaml.dump({key: value}, Dumper=_Dumper, sort_keys=False,
+                               default_flow_style=False, allow_unicode=True, width=100).rstrip())
         lines.append("")
     return "\n".join(lines)
