@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import csv
 import io
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -102,10 +103,13 @@ def read_csv(path: Path) -> RawTable:
                          f"{len(headers)} column(s); a recording needs a time column "
                          "and at least one channel, separated by commas")
     try:
-        frame = pd.read_csv(path, skiprows=header_index + 1, header=None,
-                            names=list(range(len(headers))), dtype=np.float64,
-                            engine="c", comment=None, skip_blank_lines=True,
-                            encoding="utf-8", index_col=False)
+        with warnings.catch_warnings():
+            # pandas warns, and drops cells, when a row is longer than the header.
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            frame = pd.read_csv(path, skiprows=header_index + 1, header=None,
+                                names=list(range(len(headers))), dtype=np.float64,
+                                engine="c", comment=None, skip_blank_lines=True,
+                                encoding="utf-8", index_col=False)
     except Exception:  # pandas' parser errors have no common base worth naming
         frame = None
     if frame is None or frame.isna().to_numpy().any():
