@@ -99,6 +99,19 @@ def factor_grid(n_longest: int, kind: str, grid: str = "octave", per_decade: int
     raise ValueError(f"unknown grid {grid!r}")
 
 
+def term_count(nx: int, m: int, kind: str) -> int:
+    """Difference terms a contiguous run of ``nx`` phase points gives at factor m."""
+    if kind == "mdev":
+        return max(0, nx - 3 * m + 1)
+    if kind in ("hdev", "ohdev"):
+        full = nx - 3 * m
+    else:
+        full = nx - 2 * m
+    if full < 1:
+        return 0
+    return -(-full // m) if kind in ("adev", "hdev") else full
+
+
 def _sum_squares(x: np.ndarray, m: int, kind: str,
                  work: np.ndarray | None = None) -> tuple[float, int]:
     """Sum of squared difference terms of one contiguous phase run, and their count.
@@ -107,13 +120,11 @@ def _sum_squares(x: np.ndarray, m: int, kind: str,
     temporaries cost a page fault per 4 KiB, which dominated the run time.
     """
     nx = x.shape[0]
+    if term_count(nx, m, kind) == 0:
+        return 0.0, 0
     if work is None:
         work = np.empty(nx)
-    d = 3 if kind in ("hdev", "ohdev", "mdev") else 2
-    span = (2 if kind == "mdev" else d) * m
-    count = nx - span if kind != "mdev" else nx - 3 * m + 1
-    if count < 1:
-        return 0.0, 0
+    span = (3 if kind in ("hdev", "ohdev") else 2) * m
     w = work[:nx - span]
     if kind in ("hdev", "ohdev"):
         np.subtract(x[2 * m:nx - m], x[m:nx - 2 * m], out=w)
@@ -275,7 +286,7 @@ def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
     for j, mj in enumerate(m):
         weights, inv = 0.0, 0.0
         for seg_len in lengths:
-            _, c = _sum_squares(np.zeros(seg_len + 1), int(mj), "oadev" if kind == "totdev" else kind)
+            c = term_count(int(seg_len) + 1, int(mj), "oadev" if kind == "totdev" else kind)
             if c == 0:
                 continue
             v = edf(int(alphas[j]), d, int(mj), int(seg_len) + 1, overlapping, kind == "mdev")

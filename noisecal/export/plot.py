@@ -27,9 +27,11 @@ def _fmt(e) -> str:
     return f"< {e.upper:.3g} {e.unit} (bound)"
 
 
-def _panel(ax, model: ChannelModel, dense: AllanCurve) -> None:
+def _panel(ax, model: ChannelModel, dense: AllanCurve, hadamard: AllanCurve) -> None:
     ax.fill_between(dense.taus, dense.lower, dense.upper, color="0.8", label="95 % interval")
     ax.loglog(dense.taus, dense.dev, color="k", lw=1.2, label="overlapping ADEV")
+    ax.loglog(hadamard.taus, hadamard.dev, color="0.45", lw=0.8, ls="-.",
+              label="overlapping Hadamard dev. (ignores linear drift)")
     fit = model.curve
     ax.errorbar(fit.taus, fit.dev, yerr=[fit.dev - fit.lower, fit.upper - fit.dev],
                 fmt="o", ms=3, color="k", elinewidth=0.8, capsize=2, label="fitted points")
@@ -54,8 +56,8 @@ def _panel(ax, model: ChannelModel, dense: AllanCurve) -> None:
     ax.legend(fontsize=6.5, loc="upper left", bbox_to_anchor=(0.0, -0.16), frameon=False)
 
 
-def allan_figure(models: list[ChannelModel], dense: list[AllanCurve], path: Path,
-                 title: str) -> None:
+def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
+                 hadamard: list[AllanCurve], path: Path, title: str) -> None:
     """One log–log Allan panel per channel, written atomically as PNG.
 
     Parameters
@@ -63,7 +65,9 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve], path: Path
     models : list of ChannelModel
         Fitted channels.
     dense : list of AllanCurve
-        Dense-grid curves, same order.
+        Dense-grid overlapping ADEV curves, same order.
+    hadamard : list of AllanCurve
+        Dense-grid overlapping Hadamard curves, same order.
     path : Path
         PNG path.
     title : str
@@ -72,8 +76,8 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve], path: Path
     cols = min(3, len(models))
     rows = int(np.ceil(len(models) / cols))
     fig, axes = plt.subplots(rows, cols, figsize=(5.8 * cols, 6.4 * rows), squeeze=False)
-    for ax, model, curve in zip(axes.flat, models, dense):
-        _panel(ax, model, curve)
+    for ax, model, curve, had in zip(axes.flat, models, dense, hadamard):
+        _panel(ax, model, curve, had)
     for ax in list(axes.flat)[len(models):]:
         ax.axis("off")
     fig.suptitle(title, fontsize=10)

@@ -42,6 +42,20 @@ def estimate(e: Estimate) -> dict:
     return out
 
 
+def curve_table(curve) -> dict:
+    """An Allan curve as columns: tau, deviation, interval, EDF, noise type, terms."""
+    return {
+        "kind": curve.kind,
+        "tau_s": [num(v) for v in curve.taus],
+        "deviation": [num(v) for v in curve.dev],
+        "ci95_low": [num(v) for v in curve.lower],
+        "ci95_high": [num(v) for v in curve.upper],
+        "edf": [num(v) for v in curve.edf],
+        "noise_alpha": [int(v) for v in curve.alpha],
+        "terms": [int(v) for v in curve.n_terms],
+    }
+
+
 def recording_section(rec: Recording) -> dict:
     """Facts of the recording: rate, jitter, gaps, saturation."""
     return {

@@ -47,6 +47,8 @@ class StaticResult:
     models : list of ChannelModel
     dense : list of AllanCurve
         Dense-grid overlapping ADEV per channel (for the plot).
+    hadamard : list of AllanCurve
+        Dense-grid overlapping Hadamard deviation per channel (drift-insensitive).
     psd : list of PsdCheck
     block : FilterBlock
     sections : dict
@@ -56,6 +58,7 @@ class StaticResult:
     recording: Recording
     models: list
     dense: list
+    hadamard: list
     psd: list
     block: FilterBlock
     sections: dict
@@ -116,7 +119,7 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
                          "for a 95 % interval; 200 is the default")
     segments = rec.segments
     longest = max(segments, key=lambda s: s[1] - s[0])
-    models, dense, psd = [], [], []
+    models, dense, hadamard, psd = [], [], [], []
     with progress_bar(total=2 * reps * len(names), desc="bootstrap", quiet=quiet) as bar:
         for i, name in enumerate(names):
             y = rec.channel(name)
@@ -134,10 +137,11 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
                 curve=curve,
                 coefficients=fit.c2, seed=seed + i))
             dense.append(allan_curve(y, rec.period, unit, "oadev", "dense", segments))
+            hadamard.append(allan_curve(y, rec.period, unit, "ohdev", "dense", segments))
             psd.append(white_level(y[longest[0]:longest[1]], rec.period))
     block = filter_block(models, dt if dt is not None else rec.period)
     sections = _sections(rec, models, psd, block, seed, reps, command)
-    return StaticResult(rec, models, dense, psd, block, sections)
+    return StaticResult(rec, models, dense, hadamard, psd, block, sections)
 
 
 def _sections(rec, models, psd, block, seed, reps, command) -> dict:
@@ -156,6 +160,7 @@ def _sections(rec, models, psd, block, seed, reps, command) -> dict:
             "ratio_to_allan": yaml_block.num(check.white_noise / (n.value or n.upper)),
         }
         entry["bootstrap_seed"] = model.seed
+        entry["allan_points"] = yaml_block.curve_table(model.curve)
         channels[model.channel] = entry
     return {
         "layout": yaml_block.LAYOUT,
@@ -232,7 +237,7 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
         check_target(target, [Path(path)], overwrite)
     rec = read_recording(path, repair=repair)
     result = characterise(rec, channels, dt, reps, seed, quiet, command)
-    allan_figure(result.models, result.dense, plot_path,
+    allan_figure(result.models, result.dense, result.hadamard, plot_path,
                  f"{Path(path).name} — overlapping Allan deviation, 95 % intervals, fitted terms")
     write_text(out_path, yaml_block.render(result.sections))
     return result

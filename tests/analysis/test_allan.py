@@ -6,7 +6,7 @@ import allantools
 import numpy as np
 import pytest
 
-from noisecal.analysis.allan import allan_curve, deviation, factor_grid
+from noisecal.analysis.allan import allan_curve, deviation, factor_grid, term_count
 
 NIST9 = np.array([892, 809, 823, 798, 671, 644, 883, 903, 677], dtype=float)
 
@@ -39,6 +39,8 @@ def test_equals_allantools(kind, n):
     mine, count = deviation(y, 0.25, m, kind)
     np.testing.assert_allclose(mine, ref, rtol=1e-10)
     np.testing.assert_array_equal(count, ref_n)
+    if kind != "totdev":
+        np.testing.assert_array_equal([term_count(n + 1, int(k), kind) for k in m], ref_n)
 
 
 def test_gaps_pool_segments_like_allantools_per_segment():
@@ -117,3 +119,17 @@ def test_noise_identification_matches_allantools(alpha, make):
         mine = noise_id_lag1(y, m, dmax=2)
         ref = autocorr_noise_id(y, m, data_type="freq", dmin=0, dmax=2)[0]
         assert mine == ref == alpha
+
+
+@pytest.mark.parametrize("kind, d, modified", [("oadev", 2, False), ("mdev", 2, True),
+                                               ("ohdev", 3, False)])
+def test_edf_is_greenhall_riley_for_the_identified_noise(kind, d, modified):
+    """On one contiguous run every point's EDF is allantools.edf_greenhall (Greenhall &
+    Riley 2003) for the identified noise type, N = samples + 1 phase points."""
+    n = 5000
+    y = np.random.default_rng(2).standard_normal(n)
+    c = allan_curve(y, 0.5, "1", kind, "octave")
+    ref = [allantools.edf_greenhall(alpha=int(a), d=d, m=int(m), N=n + 1, overlapping=True,
+                                    modified=modified) for a, m in zip(c.alpha, c.m)]
+    np.testing.assert_allclose(c.edf, ref, rtol=1e-12)
+    assert set(c.alpha[c.m <= n // 100]) == {0}
