@@ -12,12 +12,19 @@ from .errors import NoisecalError
 EXIT_ERROR = 2
 
 
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line errors (what, and where to look), status 2."""
+
+    def error(self, message: str):
+        self.exit(EXIT_ERROR, f"{self.prog}: error: {message}; see '{self.prog} --help'\n")
+
+
 def _parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="noisecal", description=(
+    p = _Parser(prog="noisecal", description=(
         "Noise models with 95 % intervals, and the Q and R a Kalman filter needs, "
         "from sensor recordings."))
     p.add_argument("--version", action="version", version=f"noisecal {__version__}")
-    sub = p.add_subparsers(dest="command", required=True)
+    sub = p.add_subparsers(dest="command", required=True, parser_class=_Parser)
 
     s = sub.add_parser("static", help="characterise a recording made at rest")
     s.add_argument("recording", help="CSV, Parquet or .npz; columns 'name [unit]', time first")

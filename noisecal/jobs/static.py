@@ -117,15 +117,19 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
     if reps < 20:
         raise InputError(f"--reps {reps}: at least 20 bootstrap replicates are needed "
                          "for a 95 % interval; 200 is the default")
+    step = rec.period if dt is None else dt
+    if not (np.isfinite(step) and step > 0):
+        raise InputError(f"--dt {dt}: not a positive time step; give seconds, e.g. --dt 0.01")
+    for name in names:
+        if np.ptp(rec.channel(name)) == 0:
+            raise AnalysisError(f"{rec.source.path}, column {name!r}: the channel is "
+                                "constant; leave it out with --channels")
     segments = rec.segments
     longest = max(segments, key=lambda s: s[1] - s[0])
     models, dense, hadamard, psd = [], [], [], []
     with progress_bar(total=2 * reps * len(names), desc="bootstrap", quiet=quiet) as bar:
         for i, name in enumerate(names):
             y = rec.channel(name)
-            if np.ptp(y) == 0:
-                raise AnalysisError(f"{rec.source.path}, column {name!r}: the channel is "
-                                    "constant; leave it out with --channels")
             unit = rec.unit_of(name)
             curve = allan_curve(y, rec.period, unit, "oadev", "octave", segments)
             fit = fit_terms(curve, rec.period, segments, reps=reps, seed=seed + i,
@@ -139,7 +143,7 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
             dense.append(allan_curve(y, rec.period, unit, "oadev", "dense", segments))
             hadamard.append(allan_curve(y, rec.period, unit, "ohdev", "dense", segments))
             psd.append(white_level(y[longest[0]:longest[1]], rec.period))
-    block = filter_block(models, dt if dt is not None else rec.period)
+    block = filter_block(models, step)
     sections = _sections(rec, models, psd, block, seed, reps, command)
     return StaticResult(rec, models, dense, hadamard, psd, block, sections)
 

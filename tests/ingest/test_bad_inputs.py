@@ -167,3 +167,14 @@ def test_fuzzed_csv_raises_only_project_errors(tmp_path, content):
         read_recording(path)
     except NoisecalError:
         pass
+
+
+@pytest.mark.parametrize("argv", [["static", "x.csv"], ["bogus"], ["static", "x.csv", "-o", "y.yaml", "--dt", "abc"]])
+def test_bad_command_line_is_one_line(argv, capsys):
+    from noisecal.cli import main
+
+    with pytest.raises(SystemExit) as exit_info:
+        main(argv)
+    err = capsys.readouterr().err
+    assert exit_info.value.code == 2
+    assert len(err.strip().splitlines()) == 1 and "--help" in err
