@@ -159,7 +159,8 @@ def _totvar(x: np.ndarray, m: int, tau: float) -> tuple[float, int]:
 
 
 def deviation(y: np.ndarray, period: float, m: np.ndarray, kind: str = "oadev",
-              segments: list[tuple[int, int]] | None = None) -> tuple[np.ndarray, np.ndarray]:
+              segments: list[tuple[int, int]] | None = None,
+              engine: str = "compiled") -> tuple[np.ndarray, np.ndarray]:
     """Allan-family deviation of rate data at averaging factors ``m``.
 
     Parameters
@@ -175,6 +176,9 @@ def deviation(y: np.ndarray, period: float, m: np.ndarray, kind: str = "oadev",
         (non-overlapping, overlapping) or total deviation.
     segments : list of (start, stop), optional
         Contiguous index ranges; terms never span two segments. Default: one.
+    engine : {"compiled", "reference"}
+        The compiled one-pass kernels (:mod:`noisecal.analysis.engine`, taus in
+        parallel) or the numpy reference path; both give the same numbers.
 
     Returns
     -------
@@ -199,27 +203,34 @@ def deviation(y: np.ndarray, period: float, m: np.ndarray, kind: str = "oadev",
     if kind == "totdev" and len(segments) > 1:
         raise AnalysisError("the total deviation needs a recording without gaps; "
                             "use the overlapping Allan deviation instead")
-    phases = [phase(y[a:b], period) for a, b in segments]
-    work = np.empty(max(x.shape[0] for x in phases))
     dev = np.full(m.shape[0], np.nan)
     count = np.zeros(m.shape[0], dtype=np.int64)
+    taus = m.astype(np.float64) * period
+    if kind == "totdev":
+        x = phase(y, period)
+        for j, mj in enumerate(m):
+            if x.shape[0] - 1 >= 2 * mj:
+                var, count[j] = _totvar(x, int(mj), float(taus[j]))
+                dev[j] = np.sqrt(var)
+        return dev, count
+    total = np.zeros(m.shape[0])
+    for a, b in segments:
+        # One segment's phase at a time keeps memory at one extra array.
+        x = phase(y[a:b], period)
+        if engine == "compiled":
+            from .engine import sum_squares
+
+            s, c = sum_squares(x, m, kind)
+        else:
+            work = np.empty(x.shape[0])
+            pairs = [_sum_squares(x, int(mj), kind, work) for mj in m]
+            s = np.array([p[0] for p in pairs])
+            c = np.array([p[1] for p in pairs], dtype=np.int64)
+        total += s
+        count += c
     scale = 6.0 if diff_order(kind) == 3 else 2.0
-    for j, mj in enumerate(m):
-        tau = float(mj) * period
-        if kind == "totdev":
-            if phases[0].shape[0] - 1 < 2 * mj:
-                continue
-            var, count[j] = _totvar(phases[0], int(mj), tau)
-            dev[j] = np.sqrt(var)
-            continue
-        total, terms = 0.0, 0
-        for x in phases:
-            s, c = _sum_squares(x, int(mj), kind, work)
-            total += s
-            terms += c
-        if terms:
-            count[j] = terms
-            dev[j] = np.sqrt(total / (scale * tau ** 2 * terms))
+    ok = count > 0
+    dev[ok] = np.sqrt(total[ok] / (scale * taus[ok] ** 2 * count[ok]))
     return dev, count
 
 

@@ -1,0 +1,116 @@
+"""Compiled sums of squared phase differences: one pass per tau, taus in parallel.
+
+The reference path in :mod:`noisecal.analysis.allan` forms the difference
+terms with numpy (four passes over memory per tau). Here each tau is one
+fused loop reading the phase at two to four offsets, the taus are spread
+over the cores (numba ``prange``), and each sum is accumulated in blocks of
+4096 terms so its rounding error stays that of a pairwise sum.
+
+The results equal the reference path to rounding (tested ≤ 1e-9 relative).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange
+
+_BLOCK = 4096
+KIND_CODE = {"adev": 0, "oadev": 1, "hdev": 2, "ohdev": 3, "mdev": 4}
+
+
+@njit(cache=True, nogil=True)
+def _sum_one(x, m, code):
+    nx = x.shape[0]
+    if code == 4:  # modified Allan: running sum of m second differences
+        count = nx - 3 * m + 1
+        if count < 1:
+            return 0.0, 0
+        s = 0.0
+        comp = 0.0
+        for i in range(m):
+            s += x[i + 2 * m] - 2.0 * x[i + m] + x[i]
+        total = 0.0
+        block = 0.0
+        k = 0
+        for j in range(count):
+            v = (s + comp) / m
+            block += v * v
+            k += 1
+            if k == _BLOCK:
+                total += block
+                block = 0.0
+                k = 0
+            if j + 1 < count:
+                i_new = j + m
+                add = x[i_new + 2 * m] - 2.0 * x[i_new + m] + x[i_new]
+                sub = -(x[j + 2 * m] - 2.0 * x[j + m] + x[j])
+                # Neumaier-compensated running sum: no drift over 10^8 steps.
+                for term in (add, sub):
+                    t = s + term
+                    if abs(s) >= abs(term):
+                        comp += (s - t) + term
+                    else:
+                        comp += (term - t) + s
+                    s = t
+        return total + block, count
+    third = code == 2 or code == 3
+    span = 3 * m if third else 2 * m
+    if nx - span < 1:
+        return 0.0, 0
+    stride = m if (code == 0 or code == 2) else 1
+    total = 0.0
+    block = 0.0
+    k = 0
+    count = 0
+    for i in range(0, nx - span, stride):
+        if third:
+            d = x[i + 3 * m] - 3.0 * x[i + 2 * m] + 3.0 * x[i + m] - x[i]
+        else:
+            d = x[i + 2 * m] - 2.0 * x[i + m] + x[i]
+        block += d * d
+        count += 1
+        k += 1
+        if k == _BLOCK:
+            total += block
+            block = 0.0
+            k = 0
+    return total + block, count
+
+
+@njit(parallel=True, cache=True)
+def _sum_many(x, ms, code):
+    sums = np.zeros(ms.shape[0])
+    counts = np.zeros(ms.shape[0], dtype=np.int64)
+    for j in prange(ms.shape[0]):
+        s, c = _sum_one(x, ms[j], code)
+        sums[j] = s
+        counts[j] = c
+    return sums, counts
+
+
+def sum_squares(x: np.ndarray, m: np.ndarray, kind: str) -> tuple[np.ndarray, np.ndarray]:
+    """Sums of squared difference terms of one contiguous phase run, per factor.
+
+    Parameters
+    ----------
+    x : ndarray, shape (nx,)
+        Phase of one segment (rate integrated, u·s).
+    m : ndarray of int, shape (k,)
+        Averaging factors.
+    kind : {"adev", "oadev", "hdev", "ohdev", "mdev"}
+
+    Returns
+    -------
+    sums : ndarray, shape (k,)
+        Σ term² (for ``mdev`` the terms are the means of m second differences).
+    counts : ndarray of int, shape (k,)
+        Terms in each sum.
+    """
+    order = np.argsort(-np.asarray(m))  # long taus first: fewer, cheaper loops last
+    ms = np.ascontiguousarray(np.asarray(m, dtype=np.int64)[order])
+    sums, counts = _sum_many(np.ascontiguousarray(x, dtype=np.float64), ms, KIND_CODE[kind])
+    out_s = np.empty_like(sums)
+    out_c = np.empty_like(counts)
+    out_s[order] = sums
+    out_c[order] = counts
+    return out_s, out_c
