@@ -38,10 +38,13 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--seed", type=int, default=1, help="bootstrap seed (default 1)")
     s.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     s.add_argument("--quiet", action="store_true", help="no progress bar")
+    s.add_argument("--no-cache", action="store_true",
+                   help="do not read or write the binary cache of validated recordings")
 
     i = sub.add_parser("inspect", help="describe a recording and the problems found")
     i.add_argument("recording")
     i.add_argument("--repair", choices=["sort", "drop"])
+    i.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
 
     d = sub.add_parser("demo", help="run the committed demo recording into reports/demo")
     d.add_argument("--quiet", action="store_true")
@@ -60,13 +63,13 @@ def main(argv: list[str] | None = None) -> int:
             channels = [c.strip() for c in args.channels.split(",")] if args.channels else None
             result = run_static(args.recording, args.output, args.plot, args.dt, channels,
                                 args.repair, args.overwrite, args.reps, args.seed,
-                                args.quiet, command)
+                                args.quiet, command, use_cache=not args.no_cache)
             print(summary(result))
             print(f"wrote {args.output}")
         elif args.command == "inspect":
             from .jobs.inspect import run_inspect
 
-            print(run_inspect(args.recording, args.repair))
+            print(run_inspect(args.recording, args.repair, use_cache=not args.no_cache))
         elif args.command == "demo":
             from .jobs.demo import run_demo
 

@@ -90,8 +90,9 @@ class Recording:
         Sample times, s, relative to the first sample (``time[0] == 0``).
     start_time : float
         The first sample's timestamp as in the file, s.
-    samples : ndarray, shape (n, c)
-        Channel values, SI units.
+    columns : tuple of ndarray, each shape (n,)
+        Channel values, SI units, one array per channel (memory-mapped from
+        the cache for large files).
     channels : tuple of str, length c
         Channel names (header names without units).
     units : tuple of str, length c
@@ -112,7 +113,7 @@ class Recording:
 
     time: np.ndarray
     start_time: float
-    samples: np.ndarray
+    columns: tuple
     channels: tuple[str, ...]
     units: tuple[str, ...]
     source_units: tuple[str, ...]
@@ -140,7 +141,12 @@ class Recording:
 
     def channel(self, name: str) -> np.ndarray:
         """Samples of one channel, shape (n,), SI."""
-        return self.samples[:, self.channels.index(name)]
+        return self.columns[self.channels.index(name)]
+
+    @property
+    def samples(self) -> np.ndarray:
+        """All channels as one (n, c) array (a copy: for small recordings)."""
+        return np.column_stack(self.columns)
 
     def unit_of(self, name: str) -> str:
         """SI unit of one channel."""

@@ -32,6 +32,21 @@ def sha(path: Path) -> str:
     return hashlib.sha256(Path(path).read_bytes()).hexdigest()
 
 
+@pytest.fixture(autouse=True, scope="session")
+def _private_cache(tmp_path_factory):
+    """Every test run gets its own cache folder, never the user's."""
+    import os
+
+    folder = tmp_path_factory.mktemp("cache")
+    old = os.environ.get("NOISECAL_CACHE")
+    os.environ["NOISECAL_CACHE"] = str(folder)
+    yield folder
+    if old is None:
+        os.environ.pop("NOISECAL_CACHE", None)
+    else:
+        os.environ["NOISECAL_CACHE"] = old
+
+
 @pytest.fixture
 def run_cli(capsys):
     """Run ``noisecal ARGS`` in-process; return (status, stdout, stderr)."""

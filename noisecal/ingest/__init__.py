@@ -1,30 +1,72 @@
-"""Ingest: read a recording file into one validated, SI :class:`Recording`."""
+"""Ingest: read a recording file into one validated, SI :class:`Recording`.
+
+CSV and Parquet are streamed in blocks; with the cache on (the default) the
+blocks go straight into memory-mapped ``.npy`` files of a cache entry, so a
+second run over the same file starts at once and a recording larger than
+the memory still runs. A repair (``--repair``) reads into memory and skips
+the cache.
+"""
 
 from __future__ import annotations
 
-import hashlib
+import shutil
 from pathlib import Path
 
 from ..errors import InputError
-from ..types import Recording, Source
-from .columnar import read_npz, read_parquet
-from .csv_reader import read_csv
-from .validate import REPAIRS, build_recording
+from ..types import Gap, Recording, SaturatedRun, Source
+from . import cache
+from .columnar import NpzSource, ParquetSource
+from .csv_reader import CsvSource
+from .header import parse_header
+from .sink import NpySink
+from .validate import REPAIRS, read_into_memory, stream, summarize
 
-READERS = {".csv": read_csv, ".txt": read_csv, ".parquet": read_parquet,
-           ".pq": read_parquet, ".npz": read_npz}
-
-
-def file_digest(path: Path) -> str:
-    """SHA-256 of a file's bytes, read in 1 MiB blocks."""
-    digest = hashlib.sha256()
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
+SOURCES = {".csv": CsvSource, ".txt": CsvSource, ".parquet": ParquetSource,
+           ".pq": ParquetSource, ".npz": NpzSource}
+CACHED = ("csv", "parquet")
 
 
-def read_recording(path: str | Path, repair: str | None = None) -> Recording:
+def _open(path: Path):
+    if not path.exists():
+        raise InputError(f"{path}: no such file; check the path")
+    if not path.is_file():
+        raise InputError(f"{path}: not a file; give a recording file")
+    kind = SOURCES.get(path.suffix.lower())
+    if kind is None:
+        raise InputError(f"{path}: unknown file type {path.suffix!r}; give a .csv, "
+                         ".parquet or .npz recording")
+    try:
+        return kind(path)
+    except PermissionError:
+        raise InputError(f"{path}: permission denied; make the file readable") from None
+
+
+def _recording(path, meta: dict, time, cols) -> Recording:
+    src = Source(str(path), meta["sha256"], meta["size_bytes"], meta["format"],
+                 tuple(meta["repairs"]))
+    return Recording(
+        time=time, start_time=meta["start_time"], columns=tuple(cols),
+        channels=tuple(meta["names"]), units=tuple(meta["units"]),
+        source_units=tuple(meta["source_units"]), period=meta["period"],
+        jitter=meta["jitter"], gaps=tuple(Gap(**g) for g in meta["gaps"]),
+        saturated=tuple(SaturatedRun(**r) for r in meta["saturated"]), source=src)
+
+
+def _meta(source, header, digest, size, start, time, cols, repairs) -> dict:
+    if time.shape[0] < 3:
+        raise InputError(f"{source.path}: {time.shape[0]} sample(s); at least 3 are needed")
+    period, jitter, gaps, saturated = summarize(time, cols, header.names)
+    return {
+        "layout": cache.LAYOUT, "names": list(header.names), "units": list(header.units),
+        "source_units": list(header.source_units), "format": source.format,
+        "sha256": digest, "size_bytes": size, "start_time": start, "n": int(time.shape[0]),
+        "period": period, "jitter": jitter, "repairs": list(repairs),
+        "gaps": [g.__dict__ for g in gaps], "saturated": [r.__dict__ for r in saturated],
+    }
+
+
+def read_recording(path: str | Path, repair: str | None = None, use_cache: bool = True,
+                   progress=None) -> Recording:
     """Read and validate a recording file.
 
     Parameters
@@ -33,8 +75,11 @@ def read_recording(path: str | Path, repair: str | None = None) -> Recording:
         A ``.csv``, ``.parquet``/``.pq`` or ``.npz`` file whose column names are
         ``name [unit]`` cells, time first (``time [s]`` or ``time [ns]``).
     repair : {None, "sort", "drop"}
-        Repair for timestamps that are not strictly increasing (see
-        :func:`~noisecal.ingest.validate.build_recording`).
+        Repair for timestamps that are not strictly increasing.
+    use_cache : bool
+        Use the binary cache (CSV and Parquet); see :mod:`noisecal.ingest.cache`.
+    progress : callable, optional
+        ``progress(stage, done, total)`` with stage ``"hash"`` or ``"read"``.
 
     Returns
     -------
@@ -49,17 +94,35 @@ def read_recording(path: str | Path, repair: str | None = None) -> Recording:
     path = Path(path)
     if repair is not None and repair not in REPAIRS:
         raise InputError(f"--repair {repair!r} is not known; use one of {', '.join(REPAIRS)}")
-    if not path.exists():
-        raise InputError(f"{path}: no such file; check the path")
-    if not path.is_file():
-        raise InputError(f"{path}: not a file; give a recording file")
-    reader = READERS.get(path.suffix.lower())
-    if reader is None:
-        raise InputError(f"{path}: unknown file type {path.suffix!r}; give a .csv, "
-                         ".parquet or .npz recording")
-    try:
-        raw = reader(path)
-        source = Source(str(path), file_digest(path), path.stat().st_size, raw.format)
-    except PermissionError:
-        raise InputError(f"{path}: permission denied; make the file readable") from None
-    return build_recording(raw, source, repair)
+    source = _open(path)
+    header = parse_header(source.headers, str(path))
+    size = path.stat().st_size
+    tick = (lambda stage: (lambda done: progress(stage, done, size))) if progress else (lambda s: None)
+    cached = use_cache and repair is None and source.format in CACHED
+    root = cache.cache_root() if cached else None
+    digest = cache.content_hash(path, root, tick("hash"))
+    if cached:
+        hit = cache.load(root, digest)
+        if hit is not None:
+            return _recording(path, *hit)
+        tmp = cache.new_entry(root)
+        sink = NpySink(tmp, len(header.names))
+        try:
+            start = stream(source, header, sink, None, tick("read"))
+            time, cols = sink.finish()
+            meta = _meta(source, header, digest, size, start, time, cols, ())
+            del time, cols
+            cache.commit(tmp, root, digest, meta)
+        except BaseException:
+            sink.close()
+            shutil.rmtree(tmp, ignore_errors=True)
+            raise
+        hit = cache.load(root, digest)
+        if hit is None:
+            raise InputError(f"{cache.entry_dir(root, digest)}: the cache entry just "
+                             "written cannot be read; check the disk or pass --no-cache")
+        return _recording(path, *hit)
+    start, time, cols, note = read_into_memory(source, header, repair, tick("read"))
+    repairs = (f"--repair {repair}: {note}",) if note else ()
+    meta = _meta(source, header, digest, size, start, time, cols, repairs)
+    return _recording(path, meta, time, cols)

@@ -11,81 +11,102 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
-from .table import RawTable
+
+BATCH_ROWS = 1 << 20
 
 
 def _row_phrase(row: int) -> str:
     return f"data row {row + 1}"
 
 
-def _numeric(path: Path, name: str, array: np.ndarray, n: int) -> np.ndarray:
+def _numeric(path: Path, name: str, array: np.ndarray) -> np.ndarray:
     if array.ndim != 1:
         raise InputError(f"{path}: column {name!r} has shape {array.shape}; "
                          "store each channel as a 1-D array")
-    if array.shape[0] != n:
-        raise InputError(f"{path}: column {name!r} has {array.shape[0]} rows where the "
-                         f"time column has {n}; store columns of equal length")
     if not (np.issubdtype(array.dtype, np.number) or array.dtype == bool):
         raise InputError(f"{path}: column {name!r} is of type {array.dtype}, not numeric; "
                          "store numbers")
     return array
 
 
-def read_parquet(path: Path) -> RawTable:
-    """Read a Parquet recording column by column into a :class:`RawTable`."""
-    import pyarrow.parquet as pq
+class ParquetSource:
+    """A Parquet recording, read in record batches of ``BATCH_ROWS`` rows."""
 
-    try:
-        pfile = pq.ParquetFile(path)
-        names = list(pfile.schema_arrow.names)
-    except Exception:  # pyarrow raises ArrowInvalid, OSError, … for a bad file
-        raise InputError(f"{path}: not a readable Parquet file; check that the file is "
-                         "complete and really Parquet") from None
-    if len(names) < 2:
-        raise InputError(f"{path}: {len(names)} column(s); a recording needs a time "
-                         "column and at least one channel")
-    arrays = []
-    for name in names:
+    format = "parquet"
+    locate = staticmethod(_row_phrase)
+
+    def __init__(self, path: Path):
+        import pyarrow.parquet as pq
+
+        self.path = path
         try:
-            col = pfile.read(columns=[name]).column(0)
+            self._file = pq.ParquetFile(path)
+            self.headers = list(self._file.schema_arrow.names)
+        except Exception:  # pyarrow raises ArrowInvalid, OSError, … for a bad file
+            raise InputError(f"{path}: not a readable Parquet file; check that the file is "
+                             "complete and really Parquet") from None
+        if len(self.headers) < 2:
+            raise InputError(f"{path}: {len(self.headers)} column(s); a recording needs a "
+                             "time column and at least one channel")
+        for field in self._file.schema_arrow:
+            import pyarrow.types as pt
+
+            if not (pt.is_integer(field.type) or pt.is_floating(field.type)):
+                raise InputError(f"{path}: column {field.name!r} is of type {field.type}, "
+                                 "not numeric; store numbers")
+
+    def blocks(self, time_integer: bool, progress=None):
+        rows = 0
+        try:
+            batches = self._file.iter_batches(batch_size=BATCH_ROWS)
+            for batch in batches:
+                for name, col in zip(self.headers, batch.columns):
+                    if col.null_count:
+                        bad = int(np.flatnonzero(col.is_null().to_numpy(zero_copy_only=False))[0])
+                        raise InputError(f"{self.path}, {_row_phrase(rows + bad)}, column "
+                                         f"{name!r}: missing value; fill it or remove the row")
+                arrays = [c.to_numpy(zero_copy_only=False) for c in batch.columns]
+                rows += batch.num_rows
+                if progress:
+                    progress(rows)
+                yield arrays[0], arrays[1:]
+        except InputError:
+            raise
         except Exception:
-            raise InputError(f"{path}: column {name!r} cannot be read; the file may "
+            raise InputError(f"{self.path}: the Parquet data cannot be read; the file may "
                              "be damaged") from None
-        if col.null_count:
-            row = int(np.flatnonzero(col.is_null().to_numpy(zero_copy_only=False))[0])
-            raise InputError(f"{path}, {_row_phrase(row)}, column {name!r}: missing "
-                             "value; fill it or remove the row")
+        if rows == 0:
+            raise InputError(f"{self.path}: no data rows; record some data")
+
+
+class NpzSource:
+    """A NumPy ``.npz`` recording (arrays keyed by header cells), read whole."""
+
+    format = "npz"
+    locate = staticmethod(_row_phrase)
+
+    def __init__(self, path: Path):
+        self.path = path
         try:
-            arrays.append(col.to_numpy())
-        except Exception:
-            raise InputError(f"{path}: column {name!r} is not numeric; store numbers") from None
-    n = arrays[0].shape[0]
-    arrays = [_numeric(path, nm, a, n) for nm, a in zip(names, arrays)]
-    return _table(names, arrays, "parquet")
+            with np.load(path, allow_pickle=False) as archive:
+                names = list(archive.files)
+                arrays = [archive[k] for k in names]
+        except Exception:  # zipfile, ValueError (pickled object arrays), OSError
+            raise InputError(f"{path}: not a readable .npz archive of numeric arrays; "
+                             "save it with numpy.savez") from None
+        if len(names) < 2:
+            raise InputError(f"{path}: {len(names)} array(s); a recording needs a time "
+                             "array and at least one channel")
+        first = sorted(range(len(names)), key=lambda i: not names[i].lower().startswith("time"))
+        self.headers = [names[i] for i in first]
+        self._arrays = [_numeric(path, names[i], arrays[i]) for i in first]
+        n = self._arrays[0].shape[0]
+        for name, a in zip(self.headers, self._arrays):
+            if a.shape[0] != n:
+                raise InputError(f"{path}: column {name!r} has {a.shape[0]} rows where the "
+                                 f"time column has {n}; store columns of equal length")
 
-
-def read_npz(path: Path) -> RawTable:
-    """Read a NumPy ``.npz`` recording (arrays keyed by header cells)."""
-    try:
-        with np.load(path, allow_pickle=False) as archive:
-            names = list(archive.files)
-            arrays = [archive[k] for k in names]
-    except Exception:  # zipfile, ValueError (pickled object arrays), OSError
-        raise InputError(f"{path}: not a readable .npz archive of numeric arrays; "
-                         "save it with numpy.savez") from None
-    if len(names) < 2:
-        raise InputError(f"{path}: {len(names)} array(s); a recording needs a time "
-                         "array and at least one channel")
-    time_first = sorted(range(len(names)), key=lambda i: not names[i].lower().startswith("time"))
-    names = [names[i] for i in time_first]
-    arrays = [arrays[i] for i in time_first]
-    n = arrays[0].shape[0] if arrays[0].ndim else 0
-    arrays = [_numeric(path, nm, a, n) for nm, a in zip(names, arrays)]
-    return _table(names, arrays, "npz")
-
-
-def _table(names: list, arrays: list, fmt: str) -> RawTable:
-    time = arrays[0]
-    time = time.astype(np.int64) if np.issubdtype(time.dtype, np.integer) else time.astype(np.float64)
-    cols = [np.asarray(a, dtype=np.float64) for a in arrays[1:]]
-    return RawTable(names, time, cols, fmt, _row_phrase)
+    def blocks(self, time_integer: bool, progress=None):
+        if self._arrays[0].shape[0] == 0:
+            raise InputError(f"{self.path}: no data rows; record some data")
+        yield self._arrays[0], self._arrays[1:]

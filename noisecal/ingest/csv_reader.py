@@ -1,22 +1,19 @@
 """CSV recordings: a header of ``name [unit]`` cells, then numeric rows.
 
-Leading lines that start with ``#`` are comments. The fast path is pandas'
-C parser; when it fails or finds a hole, a slow scan finds the first bad cell
-so the error can name its line and column.
+Leading lines that start with ``#`` are comments. The body is streamed in
+blocks by pyarrow's CSV reader; when it fails or finds a hole, a slow scan
+finds the first bad cell so the error can name its line and column.
 """
 
 from __future__ import annotations
 
 import csv
 import io
-import warnings
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from ..errors import InputError
-from .table import RawTable
 
 _SNIFF_BYTES = 8192
 
@@ -44,10 +41,12 @@ def _header_line(path: Path) -> tuple[int, str]:
 def _scan_for_problem(path: Path, header_index: int, headers: list[str]) -> None:
     """Raise an InputError naming the first bad row or cell; return if none."""
     names = [h.split("[")[0].strip() for h in headers]
+    seen = 0
     with open(path, encoding="utf-8", newline="") as fh:
         for line_no, line in enumerate(fh, start=1):
             if line_no <= header_index + 1 or not line.strip():
                 continue
+            seen += 1
             row = next(csv.reader([line]))
             if len(row) != len(headers):
                 raise InputError(
@@ -66,6 +65,9 @@ def _scan_for_problem(path: Path, header_index: int, headers: list[str]) -> None
                 if not np.isfinite(value):
                     raise InputError(f"{where}: {text[:20]!r} is not a finite number; "
                                      "remove the row or mark the dropout by leaving it out")
+    if seen == 0:
+        raise InputError(f"{path}: the header is there but no data rows follow; "
+                         "record some data")
 
 
 def _line_locator(path: Path, header_index: int):
@@ -82,55 +84,80 @@ def _line_locator(path: Path, header_index: int):
     return locate
 
 
-def read_csv(path: Path) -> RawTable:
-    """Read a CSV recording into a :class:`RawTable`.
+class CsvSource:
+    """A CSV recording opened for streaming.
 
-    Parameters
+    Attributes
     ----------
-    path : Path
-        The CSV file.
-
-    Raises
-    ------
-    InputError
-        Empty, binary or non-UTF-8 file; ragged rows; empty, non-numeric or
-        non-finite cells, each naming the line and column.
+    headers : list of str
+        Header cells.
+    locate : callable
+        Data-row index → ``"line N"`` (slow; for error messages only).
     """
-    header_index, header_text = _header_line(path)
-    headers = [c.strip() for c in next(csv.reader(io.StringIO(header_text)))]
-    if len(headers) < 2:
-        raise InputError(f"{path}, line {header_index + 1}: the header names "
-                         f"{len(headers)} column(s); a recording needs a time column "
-                         "and at least one channel, separated by commas")
-    try:
-        with warnings.catch_warnings():
-            # pandas warns, and drops cells, when a row is longer than the header.
-            warnings.simplefilter("error", pd.errors.ParserWarning)
-            frame = pd.read_csv(path, skiprows=header_index + 1, header=None,
-                                names=list(range(len(headers))), dtype=np.float64,
-                                engine="c", comment=None, skip_blank_lines=True,
-                                encoding="utf-8", index_col=False)
-    except Exception:  # pandas' parser errors have no common base worth naming
-        frame = None
-    if frame is None or frame.isna().to_numpy().any():
-        _scan_for_problem(path, header_index, headers)
-        if frame is None:
-            raise InputError(f"{path}: the CSV body could not be parsed; check the "
-                             "delimiter (commas) and quoting")
-    if len(frame) == 0:
-        raise InputError(f"{path}: the header is there but no data rows follow; "
-                         "record some data")
-    values = frame.to_numpy(dtype=np.float64)
-    if not np.isfinite(values).all():
-        _scan_for_problem(path, header_index, headers)
-    time = values[:, 0]
-    if headers[0].replace(" ", "").endswith("[ns]"):
-        # Integer nanoseconds since an epoch do not fit float64 exactly: reread as int64.
-        try:
-            exact = pd.read_csv(path, skiprows=header_index + 1, header=None, usecols=[0],
-                                dtype=np.int64, engine="c", skip_blank_lines=True)
-            time = exact.to_numpy()[:, 0]
-        except (ValueError, OverflowError):
-            pass  # fractional nanoseconds: float64 is all there is
-    columns = [np.ascontiguousarray(values[:, j]) for j in range(1, values.shape[1])]
-    return RawTable(headers, time, columns, "csv", _line_locator(path, header_index))
+
+    format = "csv"
+
+    def __init__(self, path: Path):
+        self.path = path
+        self.header_index, header_text = _header_line(path)
+        self.headers = [c.strip() for c in next(csv.reader(io.StringIO(header_text)))]
+        if len(self.headers) < 2:
+            raise InputError(f"{path}, line {self.header_index + 1}: the header names "
+                             f"{len(self.headers)} column(s); a recording needs a time "
+                             "column and at least one channel, separated by commas")
+        self.locate = _line_locator(path, self.header_index)
+
+    def problem(self) -> None:
+        """Raise the error for the first bad row or cell (called on any parse trouble)."""
+        _scan_for_problem(self.path, self.header_index, self.headers)
+
+    def blocks(self, time_integer: bool, progress=None):
+        """Yield ``(time, [columns])`` blocks of numbers as written in the file.
+
+        pyarrow's streaming reader parses blocks of about 16 MiB on all cores;
+        anything it cannot parse sends us to the slow scan for a precise error.
+        """
+        import pyarrow as pa
+        import pyarrow.csv as pacsv
+
+        names = [f"c{i}" for i in range(len(self.headers))]
+        types = {n: pa.float64() for n in names}
+        types[names[0]] = pa.int64() if time_integer else pa.float64()
+        read = pacsv.ReadOptions(skip_rows=self.header_index + 1, column_names=names,
+                                 block_size=1 << 24, use_threads=True)
+        convert = pacsv.ConvertOptions(column_types=types, strings_can_be_null=False,
+                                       quoted_strings_can_be_null=False)
+        rows = 0
+        with open(self.path, "rb") as fh:
+            try:
+                reader = pacsv.open_csv(fh, read_options=read, convert_options=convert)
+                for batch in reader:
+                    if any(col.null_count for col in batch.columns):
+                        self.problem()
+                    time = batch.column(0).to_numpy(zero_copy_only=False)
+                    cols = [batch.column(j).to_numpy(zero_copy_only=False)
+                            for j in range(1, batch.num_columns)]
+                    rows += batch.num_rows
+                    if progress:
+                        progress(fh.tell())
+                    yield time, cols
+            except pa.ArrowInvalid:
+                self.problem()
+                if time_integer:
+                    # Fractional nanoseconds: read the time column as float64 instead.
+                    yield from self._float_time_fallback(rows, progress)
+                    return
+                raise InputError(f"{self.path}: the CSV body could not be parsed; check "
+                                 "the delimiter (commas) and quoting") from None
+        if rows == 0:
+            raise InputError(f"{self.path}: the header is there but no data rows follow; "
+                             "record some data")
+
+    def _float_time_fallback(self, skip_rows: int, progress):
+        for i, (time, cols) in enumerate(self.blocks(False, progress)):
+            if skip_rows > 0:
+                cut = min(skip_rows, time.shape[0])
+                skip_rows -= cut
+                time, cols = time[cut:], [c[cut:] for c in cols]
+            if time.shape[0]:
+                yield time, cols

@@ -1,8 +1,9 @@
-"""Validation of a raw table into a :class:`~noisecal.types.Recording`.
+"""Validation of streamed blocks into SI columns, and the recording's summary.
 
-Checks, in order: header cells and units, the time column, finite values,
-strictly increasing timestamps (or an explicit repair), then measures the
-sample period, jitter, gaps and saturated runs.
+Checks, in order: the header (before any data), finite values and strictly
+increasing timestamps block by block (or an explicit repair), then measures
+the sample period, jitter, gaps and saturated runs in blocks, so no step
+needs a second full-size copy of a column.
 """
 
 from __future__ import annotations
@@ -10,9 +11,9 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import InputError
-from ..types import Gap, Recording, SaturatedRun, Source
-from ..units import split_header, time_scale, to_si
-from .table import RawTable
+from ..types import Gap, SaturatedRun
+from .header import Header
+from .sink import MemorySink
 
 GAP_FACTOR = 1.5
 """A step longer than this many nominal periods is a gap (common practice, no source)."""
@@ -21,132 +22,171 @@ SATURATION_MIN_RUN = 5
 """Consecutive samples at a channel's extreme that count as clipping."""
 
 REPAIRS = ("sort", "drop")
+SUMMARY_BLOCK = 1 << 20
+PERIOD_SAMPLE = 1 << 20
+"""Steps used for the median period: all of them up to this count, else an even spread."""
 
 
-def _check_time_order(time: np.ndarray, raw: RawTable, path: str, repair: str | None):
-    """Return (order index, repair note) or raise on bad ordering without repair."""
-    step = np.diff(time)
-    bad = np.flatnonzero(step <= 0)
-    if bad.size == 0:
-        return None, None
-    if repair is None:
-        row = int(bad[0]) + 1
-        what = "repeats" if step[bad[0]] == 0 else "goes backwards from"
-        raise InputError(
-            f"{path}, {raw.locate(row)}: timestamp {what} the previous one "
-            f"({bad.size} such step(s) in the file); fix the log or pass "
-            "--repair sort (sort, drop repeats) or --repair drop (drop out-of-order rows)")
-    if repair == "sort":
-        order = np.argsort(time, kind="stable")
-        sorted_t = time[order]
-        keep = np.concatenate([[True], np.diff(sorted_t) > 0])
-        out_of_order = int(np.count_nonzero(step < 0))
-        note = (f"sorted by time ({out_of_order} backward step(s)); dropped "
-                f"{int(np.count_nonzero(~keep))} row(s) with a repeated timestamp")
-        return order[keep], note
-    running = np.maximum.accumulate(time)
-    keep = np.concatenate([[True], time[1:] > running[:-1]])
-    note = f"dropped {int(np.count_nonzero(~keep))} row(s) not later than the rows before them"
-    return np.flatnonzero(keep), note
+def _order_error(source, row: int, step, count: int):
+    what = "repeats" if step == 0 else "goes backwards from"
+    raise InputError(
+        f"{source.path}, {source.locate(row)}: timestamp {what} the previous one "
+        f"({count} such step(s) in this block); fix the log or pass --repair sort "
+        "(sort, drop repeats) or --repair drop (drop out-of-order rows)")
 
 
-def _saturated_runs(name: str, t: np.ndarray, y: np.ndarray) -> list[SaturatedRun]:
-    runs = []
-    for extreme in {float(np.max(y)), float(np.min(y))}:
-        at = y == extreme
-        if np.count_nonzero(at) < SATURATION_MIN_RUN:
-            continue
-        edges = np.diff(np.concatenate([[0], at.astype(np.int8), [0]]))
-        starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
-        for a, b in zip(starts, stops):
-            if b - a >= SATURATION_MIN_RUN:
-                runs.append(SaturatedRun(name, float(t[a]), int(b - a), extreme))
-    return sorted(runs, key=lambda r: r.start_s)
-
-
-def build_recording(raw: RawTable, source: Source, repair: str | None = None,
-                    min_samples: int = 3) -> Recording:
-    """Validate a raw table and convert it to SI.
+def stream(source, header: Header, sink, repair: str | None = None, progress=None):
+    """Validate and convert every block of ``source`` into ``sink``.
 
     Parameters
     ----------
-    raw : RawTable
-        Columns as read.
-    source : Source
-        Provenance of the file (repairs are added to it).
+    source
+        A CSV, Parquet or npz source (``blocks``, ``locate``, ``path``).
+    header : Header
+        The parsed header.
+    sink : MemorySink or NpySink
+        Receives relative time (s) and SI columns.
     repair : {None, "sort", "drop"}
-        What to do with timestamps that are not strictly increasing: None
-        refuses them; ``sort`` sorts and drops repeated timestamps; ``drop``
-        drops rows not later than all rows before them.
-    min_samples : int
-        Fewest samples accepted.
+        With a repair, out-of-order timestamps are allowed here and mended in
+        :func:`apply_repair` (the sink must then be a MemorySink).
+    progress : callable, optional
+        Passed to the source's block reader.
 
     Returns
     -------
-    Recording
+    start_time : float
+        First timestamp in the file, s.
     """
     path = source.path
-    names, units = [], []
-    for col, cell in enumerate(raw.headers):
-        name, unit = split_header(str(cell), f"{path}, column {col + 1}")
-        names.append(name)
-        units.append(unit)
-    if names[0].lower() != "time":
-        raise InputError(f"{path}: the first column is {raw.headers[0]!r}, not the time; "
-                         "put a 'time [s]' or 'time [ns]' column first")
-    seen = set()
-    for name in names[1:]:
-        if name in seen or name.lower() == "time":
-            raise InputError(f"{path}: channel name {name!r} appears twice; "
-                             "give each column its own name")
-        seen.add(name)
-    scale = time_scale(units[0], f"{path}, column 'time'")
-    time = raw.time
+    rows = 0
+    t0 = None
+    last = None
+    for time, cols in source.blocks(header.time_integer, progress):
+        if len(cols) != len(header.names):
+            raise InputError(f"{path}: {len(cols) + 1} columns where the header has "
+                             f"{len(header.names) + 1}")
+        if time.dtype.kind == "f" and not np.isfinite(time).all():
+            row = rows + int(np.flatnonzero(~np.isfinite(time))[0])
+            raise InputError(f"{path}, {source.locate(row)}, column 'time': not a finite "
+                             "number; fix or remove the row")
+        for name, col in zip(header.names, cols):
+            finite = np.isfinite(col)
+            if not finite.all():
+                row = rows + int(np.flatnonzero(~finite)[0])
+                raise InputError(f"{path}, {source.locate(row)}, column {name!r}: "
+                                 f"{col[row - rows]} is not a finite number; remove the row "
+                                 "(the gap will be detected) or fix the logger")
+        if t0 is None:
+            t0 = time[0]
+        steps = np.diff(time) if last is None else np.diff(np.concatenate([[last], time]))
+        bad = np.flatnonzero(steps <= 0)
+        if bad.size and repair is None:
+            first = int(bad[0])
+            _order_error(source, rows + first + (1 if last is None else 0), steps[first], bad.size)
+        last = time[-1]
+        # Relative time before scaling keeps integer nanoseconds exact.
+        rel = (time - t0).astype(np.float64) * header.time_scale
+        si = [c * s + o if o else c * s
+              for c, s, o in zip(cols, header.scale, header.offset)]
+        sink.append(rel, si)
+        rows += time.shape[0]
+    return float(t0) * header.time_scale
+
+
+def apply_repair(time: np.ndarray, cols: list, repair: str):
+    """Sort (dropping repeats) or drop out-of-order rows.
+
+    Returns
+    -------
+    time, cols, note, shift
+        Repaired columns (time restarting at 0), the repair's note (None if
+        nothing was needed) and the shift of the first kept sample, s.
+    """
+    step = np.diff(time)
+    if not np.any(step <= 0):
+        return time, cols, None, 0.0
+    if repair == "sort":
+        order = np.argsort(time, kind="stable")
+        keep = np.concatenate([[True], np.diff(time[order]) > 0])
+        note = (f"sorted by time ({int(np.count_nonzero(step < 0))} backward step(s)); dropped "
+                f"{int(np.count_nonzero(~keep))} row(s) with a repeated timestamp")
+        index = order[keep]
+    else:
+        running = np.maximum.accumulate(time)
+        keep = np.concatenate([[True], time[1:] > running[:-1]])
+        note = f"dropped {int(np.count_nonzero(~keep))} row(s) not later than the rows before them"
+        index = np.flatnonzero(keep)
+    time = time[index]
+    return time - time[0], [c[index] for c in cols], note, float(time[0])
+
+
+def _steps(time: np.ndarray):
+    """Timestamp steps in blocks: yields (offset of the block's first step, steps)."""
     n = time.shape[0]
-    if n < min_samples:
-        raise InputError(f"{path}: {n} sample(s); at least {min_samples} are needed")
-    if time.dtype.kind == "f" and not np.isfinite(time).all():
-        row = int(np.flatnonzero(~np.isfinite(time))[0])
-        raise InputError(f"{path}, {raw.locate(row)}, column 'time': not a finite "
-                         "number; fix or remove the row")
-    for name, col in zip(names[1:], raw.columns):
-        finite = np.isfinite(col)
-        if not finite.all():
-            row = int(np.flatnonzero(~finite)[0])
-            raise InputError(f"{path}, {raw.locate(row)}, column {name!r}: "
-                             f"{col[row]} is not a finite number; remove the row "
-                             "(the gap will be detected) or fix the logger")
-    order, note = _check_time_order(time, raw, path, repair)
-    columns = raw.columns
-    if order is not None:
-        time = time[order]
-        columns = [c[order] for c in columns]
-        if time.shape[0] < min_samples:
-            raise InputError(f"{path}: only {time.shape[0]} sample(s) left after the "
-                             f"repair; at least {min_samples} are needed")
-    # Relative time first, then scale: keeps integer nanoseconds exact.
-    rel = (time - time[0]).astype(np.float64) * scale
-    start = float(time[0]) * scale
-    si_cols, si_units = [], []
-    for name, unit, col in zip(names[1:], units[1:], columns):
-        values, si_unit = to_si(col, unit, f"{path}, column {name!r}")
-        si_cols.append(values)
-        si_units.append(si_unit)
-    step = np.diff(rel)
-    period = float(np.median(step))
-    is_gap = step > GAP_FACTOR * period
-    gaps = tuple(
-        Gap(start_s=float(rel[i]), length_s=float(step[i] - period),
-            missing=int(round(step[i] / period)) - 1, index=int(i + 1))
-        for i in np.flatnonzero(is_gap))
-    regular = step[~is_gap]
-    jitter = float(np.std(regular)) if regular.size > 1 else 0.0
+    for a in range(0, n - 1, SUMMARY_BLOCK):
+        b = min(n, a + SUMMARY_BLOCK + 1)
+        yield a, np.diff(np.asarray(time[a:b]))
+
+
+def summarize(time: np.ndarray, cols: list, names: tuple):
+    """Period, jitter, gaps and saturated runs of validated columns.
+
+    Returns
+    -------
+    period : float
+        Median step, s (of an even spread of ``PERIOD_SAMPLE`` steps on long records).
+    jitter : float
+        Standard deviation of the steps outside gaps, s.
+    gaps : tuple of Gap
+    saturated : tuple of SaturatedRun
+    """
+    n = time.shape[0]
+    if n - 1 <= PERIOD_SAMPLE:
+        sample = np.diff(np.asarray(time))
+    else:
+        idx = np.linspace(0, n - 2, PERIOD_SAMPLE).astype(np.int64)
+        sample = np.asarray(time[idx + 1]) - np.asarray(time[idx])
+    period = float(np.median(sample))
+    gaps, count, s1, s2 = [], 0, 0.0, 0.0
+    for a, step in _steps(time):
+        is_gap = step > GAP_FACTOR * period
+        for i in np.flatnonzero(is_gap):
+            gaps.append(Gap(start_s=float(time[a + i]), length_s=float(step[i] - period),
+                            missing=int(round(step[i] / period)) - 1, index=int(a + i + 1)))
+        dev = step[~is_gap] - period
+        count += dev.shape[0]
+        s1 += float(dev.sum())
+        s2 += float(np.dot(dev, dev))
+    jitter = float(np.sqrt(max(s2 / count - (s1 / count) ** 2, 0.0))) if count > 1 else 0.0
     saturated = []
-    for name, values in zip(names[1:], si_cols):
-        saturated.extend(_saturated_runs(name, rel, values))
-    repairs = source.repairs + ((f"--repair {repair}: {note}",) if note else ())
-    src = Source(source.path, source.sha256, source.size_bytes, raw.format, repairs)
-    return Recording(time=rel, start_time=start, samples=np.column_stack(si_cols),
-                     channels=tuple(names[1:]), units=tuple(si_units),
-                     source_units=tuple(units[1:]), period=period, jitter=jitter,
-                     gaps=gaps, saturated=tuple(saturated), source=src)
+    for name, col in zip(names, cols):
+        saturated.extend(_saturated_runs(name, time, col))
+    return period, jitter, tuple(gaps), tuple(saturated)
+
+
+def _saturated_runs(name: str, t: np.ndarray, y: np.ndarray) -> list:
+    runs = []
+    for extreme in {float(np.max(y)), float(np.min(y))}:
+        hits = np.concatenate([a + np.flatnonzero(np.asarray(y[a:a + SUMMARY_BLOCK]) == extreme)
+                               for a in range(0, y.shape[0], SUMMARY_BLOCK)])
+        if hits.size < SATURATION_MIN_RUN:
+            continue
+        breaks = np.flatnonzero(np.diff(hits) != 1)
+        starts = np.concatenate([[0], breaks + 1])
+        stops = np.concatenate([breaks + 1, [hits.size]])
+        for a, b in zip(starts, stops):
+            if b - a >= SATURATION_MIN_RUN:
+                runs.append(SaturatedRun(name, float(t[hits[a]]), int(b - a), extreme))
+    return sorted(runs, key=lambda r: r.start_s)
+
+
+def read_into_memory(source, header: Header, repair: str | None, progress=None):
+    """Stream a source into memory, repairing timestamps if asked."""
+    sink = MemorySink(len(header.names))
+    start = stream(source, header, sink, repair, progress)
+    time, cols = sink.finish()
+    note = None
+    if repair is not None:
+        time, cols, note, shift = apply_repair(time, cols, repair)
+        start += shift
+    return start, time, cols, note

@@ -57,6 +57,6 @@ def describe(rec: Recording) -> str:
     return "\n".join(lines)
 
 
-def run_inspect(path: str, repair: str | None = None) -> str:
+def run_inspect(path: str, repair: str | None = None, use_cache: bool = True) -> str:
     """Read and describe a recording."""
-    return describe(read_recording(path, repair=repair))
+    return describe(read_recording(path, repair=repair, use_cache=use_cache))

@@ -28,7 +28,7 @@ from ..fit.simulate import TERM_NAMES
 from ..ingest import read_recording
 from ..types import AllanCurve, ChannelModel, FilterBlock, PsdCheck, Recording
 from ..units import customary
-from .progress import progress_bar
+from .progress import StageBars, progress_bar
 
 MIN_SAMPLES = 1024
 """Fewest contiguous samples: gives an octave curve of nine points (τ0 … 256 τ0)."""
@@ -209,7 +209,7 @@ def summary(result: StaticResult) -> str:
 def run_static(path: str, out: str, plot: str | None = None, dt: float | None = None,
                channels: list[str] | None = None, repair: str | None = None,
                overwrite: bool = False, reps: int = DEFAULT_REPS, seed: int = DEFAULT_SEED,
-               quiet: bool = False, command: str = "") -> StaticResult:
+               quiet: bool = False, command: str = "", use_cache: bool = True) -> StaticResult:
     """Read, characterise and write the YAML block and the plot.
 
     Parameters
@@ -226,6 +226,8 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
         Timestamp repair at ingest.
     overwrite : bool
         Replace existing outputs.
+    use_cache : bool
+        Use the binary cache of validated recordings.
 
     Returns
     -------
@@ -239,7 +241,11 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
         raise InputError(f"--plot {plot_path}: the same path as -o; give the plot its own path")
     for target in (out_path, plot_path):
         check_target(target, [Path(path)], overwrite)
-    rec = read_recording(path, repair=repair)
+    bars = StageBars(quiet)
+    try:
+        rec = read_recording(path, repair=repair, use_cache=use_cache, progress=bars)
+    finally:
+        bars.close()
     result = characterise(rec, channels, dt, reps, seed, quiet, command)
     allan_figure(result.models, result.dense, result.hadamard, plot_path,
                  f"{Path(path).name} — overlapping Allan deviation, 95 % intervals, fitted terms")
