@@ -10,6 +10,7 @@ the cache.
 from __future__ import annotations
 
 import shutil
+import tempfile
 from pathlib import Path
 
 from ..errors import InputError
@@ -122,7 +123,18 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
             raise InputError(f"{cache.entry_dir(root, digest)}: the cache entry just "
                              "written cannot be read; check the disk or pass --no-cache")
         return _recording(path, *hit)
-    start, time, cols, note = read_into_memory(source, header, repair, tick("read"))
+    if repair is not None:
+        start, time, cols, note = read_into_memory(source, header, repair, tick("read"))
+    else:
+        # Stream through temporary files so memory holds one copy, not blocks + copy.
+        with tempfile.TemporaryDirectory(prefix="noisecal-") as tmp:
+            sink = NpySink(Path(tmp), len(header.names))
+            try:
+                start = stream(source, header, sink, None, tick("read"))
+                time, cols = sink.finish(in_memory=True)
+            finally:
+                sink.close()
+        note = None
     repairs = (f"--repair {repair}: {note}",) if note else ()
     meta = _meta(source, header, digest, size, start, time, cols, repairs)
     return _recording(path, meta, time, cols)

@@ -70,12 +70,20 @@ class NpySink:
             if not fh.closed:
                 fh.close()
 
-    def finish(self) -> tuple[np.ndarray, list]:
+    def finish(self, in_memory: bool = False) -> tuple[np.ndarray, list]:
+        """Complete the files; return memory maps, or arrays read into memory.
+
+        Reading back with ``fromfile`` costs one copy in memory; the file's
+        pages stay in the page cache, outside the process.
+        """
         head = npy_header(self.n)
         for fh in self._files:
             fh.flush()
             fh.seek(0)
             fh.write(head)
             fh.close()
-        arrays = [np.load(p, mmap_mode="r") for p in self.paths]
+        if in_memory:
+            arrays = [np.fromfile(p, dtype="<f8", offset=NPY_HEADER) for p in self.paths]
+        else:
+            arrays = [np.load(p, mmap_mode="r") for p in self.paths]
         return arrays[0], arrays[1:]

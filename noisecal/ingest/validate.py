@@ -22,8 +22,8 @@ SATURATION_MIN_RUN = 5
 """Consecutive samples at a channel's extreme that count as clipping."""
 
 REPAIRS = ("sort", "drop")
-SUMMARY_BLOCK = 1 << 20
-PERIOD_SAMPLE = 1 << 20
+SUMMARY_BLOCK = 1 << 18
+PERIOD_SAMPLE = 1 << 18
 """Steps used for the median period: all of them up to this count, else an even spread."""
 
 
@@ -62,6 +62,8 @@ def stream(source, header: Header, sink, repair: str | None = None, progress=Non
     t0 = None
     last = None
     for time, cols in source.blocks(header.time_integer, progress):
+        if time.shape[0] == 0:
+            continue
         if len(cols) != len(header.names):
             raise InputError(f"{path}: {len(cols) + 1} columns where the header has "
                              f"{len(header.names) + 1}")

@@ -10,6 +10,9 @@ class _Silent:
     def update(self, n: int = 1) -> None:
         pass
 
+    def set_description(self, text: str) -> None:
+        pass
+
 
 def visible(quiet: bool) -> bool:
     """Whether bars should be drawn: not quiet, and stderr is a terminal."""

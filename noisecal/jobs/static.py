@@ -131,7 +131,11 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
         for i, name in enumerate(names):
             y = rec.channel(name)
             unit = rec.unit_of(name)
+            bar.set_description(f"{name}: deviations")
             curve = allan_curve(y, rec.period, unit, "oadev", "octave", segments)
+            dense.append(allan_curve(y, rec.period, unit, "oadev", "dense", segments))
+            hadamard.append(allan_curve(y, rec.period, unit, "ohdev", "dense", segments))
+            bar.set_description(f"{name}: bootstrap")
             fit = fit_terms(curve, rec.period, segments, reps=reps, seed=seed + i,
                             progress=bar.update)
             models.append(ChannelModel(
@@ -140,8 +144,6 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
                                               seed + 1000 + i, progress=bar.update),
                 curve=curve,
                 coefficients=fit.c2, seed=seed + i))
-            dense.append(allan_curve(y, rec.period, unit, "oadev", "dense", segments))
-            hadamard.append(allan_curve(y, rec.period, unit, "ohdev", "dense", segments))
             psd.append(white_level(y[longest[0]:longest[1]], rec.period))
     block = filter_block(models, step)
     sections = _sections(rec, models, psd, block, seed, reps, command)

@@ -10,7 +10,7 @@ from noisecal.analysis.allan import deviation, factor_grid
 
 
 @pytest.mark.parametrize("kind", ["adev", "oadev", "mdev", "hdev", "ohdev"])
-@pytest.mark.parametrize("n", [997, 10_001, 65_537])
+@pytest.mark.parametrize("n", [997, 10_001, 65_537, 300_001])
 def test_engine_equals_reference_path_with_gaps(kind, n):
     """Same numbers as the numpy reference path (≤ 1e-9 relative, common practice,
     no source), odd lengths and gaps included."""
