@@ -4,7 +4,7 @@ VENV   := .venv
 BIN    := $(VENV)/bin
 STAMP  := $(VENV)/.installed
 
-.PHONY: demo test test-slow demo-data clean
+.PHONY: demo test test-slow demo-data bench clean
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -30,3 +30,7 @@ demo-data: $(STAMP)
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache
+
+## Benchmarks (a few minutes; not part of make test): reports/bench.json and a table.
+bench: $(STAMP)
+	$(BIN)/python tools/bench.py
