@@ -44,10 +44,9 @@ def phase(y: np.ndarray, period: float) -> np.ndarray:
         Phase, u·s, starting at 0. Removing the mean changes no deviation
         (a constant rate is a linear phase) and keeps the cumulative sum precise.
     """
-    x = np.empty(y.shape[0] + 1)
-    x[0] = 0.0
-    np.cumsum((y - y.mean()) * period, out=x[1:])
-    return x
+    from .engine import integrate
+
+    return integrate(y, period)
 
 
 def max_factor(n_longest: int, kind: str) -> int:
@@ -237,7 +236,7 @@ def deviation(y: np.ndarray, period: float, m: np.ndarray, kind: str = "oadev",
 def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
                 grid: str | np.ndarray = "octave",
                 segments: list[tuple[int, int]] | None = None,
-                level: float = 0.95, per_decade: int = 10):
+                level: float = 0.95, per_decade: int = 10, noise_from=None):
     """A deviation curve with noise type, EDF and interval at every tau.
 
     Parameters
@@ -258,6 +257,10 @@ def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
         Confidence level of the per-point interval.
     per_decade : int
         Density of the dense grid.
+    noise_from : AllanCurve, optional
+        Take each tau's noise type from the nearest tau (log scale) of this
+        curve instead of identifying it again: the type belongs to the data,
+        not to the estimator, and identification is a full pass per tau.
 
     Returns
     -------
@@ -280,7 +283,11 @@ def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
     taus = m * period
     d = diff_order(kind)
     y_long = y[longest[0]:longest[1]]
-    ident = [noise_id_lag1(y_long, int(mj), dmax=d) for mj in m]
+    if noise_from is not None:
+        near = np.abs(np.log(taus)[:, None] - np.log(noise_from.taus)[None, :]).argmin(axis=1)
+        ident = [int(noise_from.alpha[k]) for k in near]
+    else:
+        ident = [noise_id_lag1(y_long, int(mj), dmax=d) for mj in m]
     known = [j for j, a in enumerate(ident) if a is not None]
     alphas = np.empty(m.shape[0], dtype=np.int64)
     for j, a in enumerate(ident):

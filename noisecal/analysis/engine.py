@@ -21,6 +21,34 @@ KIND_CODE = {"adev": 0, "oadev": 1, "hdev": 2, "ohdev": 3, "mdev": 4}
 
 
 @njit(cache=True, nogil=True)
+def _integrate(y, mean, period, x):
+    acc = 0.0
+    x[0] = 0.0
+    for i in range(y.shape[0]):
+        acc += (y[i] - mean) * period
+        x[i + 1] = acc
+    return x
+
+
+def integrate(y: np.ndarray, period: float) -> np.ndarray:
+    """Phase of rate samples in one pass: x[0] = 0, x[i+1] = Σ (y − mean)·period.
+
+    Parameters
+    ----------
+    y : ndarray, shape (n,)
+    period : float
+
+    Returns
+    -------
+    x : ndarray, shape (n + 1,)
+        Same numbers as ``cumsum((y - mean) * period)`` without its two
+        full-size temporaries.
+    """
+    y = np.asarray(y, dtype=np.float64)
+    return _integrate(y, float(np.mean(y)), float(period), np.empty(y.shape[0] + 1))
+
+
+@njit(cache=True, nogil=True)
 def _sum_one(x, m, code):
     nx = x.shape[0]
     if code == 4:  # modified Allan: running sum of m second differences
@@ -59,7 +87,11 @@ def _sum_one(x, m, code):
     span = 3 * m if third else 2 * m
     if nx - span < 1:
         return 0.0, 0
-    stride = m if (code == 0 or code == 2) else 1
+    if code == 1:
+        return _sum_overlapping2(x, m, nx - span), nx - span
+    if code == 3:
+        return _sum_overlapping3(x, m, nx - span), nx - span
+    stride = m
     total = 0.0
     block = 0.0
     k = 0
@@ -77,6 +109,58 @@ def _sum_one(x, m, code):
             block = 0.0
             k = 0
     return total + block, count
+
+
+@njit(cache=True, nogil=True)
+def _sum_overlapping2(x, m, count):
+    # Four accumulators per block, and reassociation allowed inside a block, so
+    # the compiler can use vector lanes; blocks are still summed in order.
+    total = 0.0
+    for start in range(0, count, _BLOCK):
+        stop = min(count, start + _BLOCK)
+        a0 = a1 = a2 = a3 = 0.0
+        i = start
+        while i + 3 < stop:
+            d0 = x[i + 2 * m] - 2.0 * x[i + m] + x[i]
+            d1 = x[i + 1 + 2 * m] - 2.0 * x[i + 1 + m] + x[i + 1]
+            d2 = x[i + 2 + 2 * m] - 2.0 * x[i + 2 + m] + x[i + 2]
+            d3 = x[i + 3 + 2 * m] - 2.0 * x[i + 3 + m] + x[i + 3]
+            a0 += d0 * d0
+            a1 += d1 * d1
+            a2 += d2 * d2
+            a3 += d3 * d3
+            i += 4
+        while i < stop:
+            d0 = x[i + 2 * m] - 2.0 * x[i + m] + x[i]
+            a0 += d0 * d0
+            i += 1
+        total += (a0 + a1) + (a2 + a3)
+    return total
+
+
+@njit(cache=True, nogil=True)
+def _sum_overlapping3(x, m, count):
+    total = 0.0
+    for start in range(0, count, _BLOCK):
+        stop = min(count, start + _BLOCK)
+        a0 = a1 = a2 = a3 = 0.0
+        i = start
+        while i + 3 < stop:
+            d0 = x[i + 3 * m] - 3.0 * x[i + 2 * m] + 3.0 * x[i + m] - x[i]
+            d1 = x[i + 1 + 3 * m] - 3.0 * x[i + 1 + 2 * m] + 3.0 * x[i + 1 + m] - x[i + 1]
+            d2 = x[i + 2 + 3 * m] - 3.0 * x[i + 2 + 2 * m] + 3.0 * x[i + 2 + m] - x[i + 2]
+            d3 = x[i + 3 + 3 * m] - 3.0 * x[i + 3 + 2 * m] + 3.0 * x[i + 3 + m] - x[i + 3]
+            a0 += d0 * d0
+            a1 += d1 * d1
+            a2 += d2 * d2
+            a3 += d3 * d3
+            i += 4
+        while i < stop:
+            d0 = x[i + 3 * m] - 3.0 * x[i + 2 * m] + 3.0 * x[i + m] - x[i]
+            a0 += d0 * d0
+            i += 1
+        total += (a0 + a1) + (a2 + a3)
+    return total
 
 
 @njit(cache=True, nogil=True)

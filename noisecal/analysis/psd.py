@@ -16,6 +16,11 @@ from scipy import signal
 from ..types import PsdCheck
 
 
+MAX_SAMPLES = 1 << 21
+"""Samples the PSD uses at most (its first part): ~1000 averaged segments read the
+white level to about 3 %, and a day at 400 Hz would need gigabytes of segments."""
+
+
 def white_level(y: np.ndarray, period: float, band: tuple[float, float] = (0.2, 0.45),
                 nperseg: int = 4096) -> PsdCheck:
     """White-noise coefficient N read from the upper part of a Welch PSD.
@@ -23,7 +28,8 @@ def white_level(y: np.ndarray, period: float, band: tuple[float, float] = (0.2, 
     Parameters
     ----------
     y : ndarray, shape (n,)
-        Rate samples of one contiguous segment, unit u.
+        Rate samples of one contiguous segment, unit u (the first
+        ``MAX_SAMPLES`` are used).
     period : float
         Sample period, s.
     band : tuple of float
@@ -38,6 +44,7 @@ def white_level(y: np.ndarray, period: float, band: tuple[float, float] = (0.2, 
         The PSD (one-sided, u²/Hz) and N = sqrt(mean PSD in band / 2), u/√Hz.
     """
     fs = 1.0 / period
+    y = np.asarray(y[:MAX_SAMPLES], dtype=np.float64)
     nseg = int(min(nperseg, max(16, y.shape[0] // 8)))
     freq, psd = signal.welch(y - y.mean(), fs=fs, nperseg=nseg, detrend="linear")
     lo, hi = band[0] * fs, band[1] * fs

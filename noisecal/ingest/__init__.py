@@ -96,7 +96,6 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
     if repair is not None and repair not in REPAIRS:
         raise InputError(f"--repair {repair!r} is not known; use one of {', '.join(REPAIRS)}")
     source = _open(path)
-    header = parse_header(source.headers, str(path))
     size = path.stat().st_size
     tick = (lambda stage: (lambda done: progress(stage, done, size))) if progress else (lambda s: None)
     cached = use_cache and repair is None and source.format in CACHED
@@ -105,7 +104,9 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
     if cached:
         hit = cache.load(root, digest)
         if hit is not None:
-            return _recording(path, *hit)
+            return _recording(path, *hit)  # the header was checked when the entry was made
+    header = parse_header(source.headers, str(path))
+    if cached:
         tmp = cache.new_entry(root)
         sink = NpySink(tmp, len(header.names))
         try:

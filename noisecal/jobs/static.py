@@ -133,8 +133,10 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
             unit = rec.unit_of(name)
             bar.set_description(f"{name}: deviations")
             curve = allan_curve(y, rec.period, unit, "oadev", "octave", segments)
-            dense.append(allan_curve(y, rec.period, unit, "oadev", "dense", segments))
-            hadamard.append(allan_curve(y, rec.period, unit, "ohdev", "dense", segments))
+            dense.append(allan_curve(y, rec.period, unit, "oadev", "dense", segments,
+                                     noise_from=curve))
+            hadamard.append(allan_curve(y, rec.period, unit, "ohdev", "dense", segments,
+                                        noise_from=curve))
             bar.set_description(f"{name}: bootstrap")
             fit = fit_terms(curve, rec.period, segments, reps=reps, seed=seed + i,
                             progress=bar.update)
