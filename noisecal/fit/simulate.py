@@ -3,7 +3,8 @@
 Each term is generated so that its Allan variance is the Annex C expression:
 quantization 3Q²/τ² (white phase of std Q), white noise N²/τ (white rate of
 variance N²/τ0), bias instability (2 ln2/π)B² (flicker rate of one-sided PSD
-B²/(π f)), rate random walk K²τ/3 (random walk with increment variance K²τ0),
+B²/(π f)), rate random walk K²τ/3 (a random walk with increment variance K²τ0,
+averaged over each sample period),
 rate ramp R²τ²/2 (y = R·t). An optional first-order Gauss–Markov term has
 stationary std sigma and correlation time T.
 
@@ -125,12 +126,28 @@ def simulate_rate(c2: np.ndarray, period: float, n: int, rng: np.random.Generato
     if b2 > 0:
         y += flicker(n, period, b2 / np.pi, rng)
     if k2 > 0:
-        y += np.cumsum(rng.standard_normal(n)) * np.sqrt(k2 * period)
+        y += averaged_random_walk(n, period, k2, rng)
     if r2 > 0:
         y += np.sqrt(r2) * period * np.arange(n)
     if gm is not None and gm[0] > 0:
         y += gauss_markov(n, period, gm[0], gm[1], rng)
     return y
+
+
+def averaged_random_walk(n: int, period: float, k2: float,
+                         rng: np.random.Generator) -> np.ndarray:
+    """Averages over each sample period of a rate random walk (exact).
+
+    With W the random walk (increment variance K²·dt) and ΔW_j its step over
+    sample j, the sample's average is W_j + U_j where U_j = ΔW_j/2 + V_j and
+    V_j ~ N(0, K²·dt/12) is independent (the Brownian-bridge part). Averaged
+    samples keep σ²(τ) = K²τ/3 exactly at every τ = m·dt, so a record
+    simulated at a coarser period (the decimated bootstrap) has the same Allan
+    variance as one simulated sample for sample.
+    """
+    step = rng.standard_normal(n) * np.sqrt(k2 * period)
+    start = np.concatenate([[0.0], np.cumsum(step[:-1])])
+    return start + 0.5 * step + rng.standard_normal(n) * np.sqrt(k2 * period / 12.0)
 
 
 def gauss_markov(n: int, period: float, sigma: float, corr_time: float,
