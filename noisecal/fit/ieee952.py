@@ -245,11 +245,16 @@ def pivot_interval(estimate: float, replicates: np.ndarray, level: float = 0.95)
 
     For an estimator whose ratio to the truth has a fixed distribution (a
     chi-square-like variance), the replicate ratios θ*/θ̂ stand for θ̂/θ.
-    Returns None when the lower replicate quantile is zero.
+    Returns None when a/2 or more of the replicates are zero (the term is then
+    not resolved); the quantiles are Harrell–Davis estimates.
     """
     a = 1.0 - level
+    # Resolution is decided on the replicates themselves: a term set to zero in
+    # a/2 of them or more is not kept from zero (smoothing would hide that).
+    if estimate <= 0 or np.mean(replicates <= 0) >= a / 2.0:
+        return None
     q_lo, q_hi = harrell_davis(replicates, [a / 2.0, 1.0 - a / 2.0])
-    if q_lo <= 0 or estimate <= 0:
+    if q_lo <= 0:
         return None
     return estimate * estimate / q_hi, estimate * estimate / q_lo
 

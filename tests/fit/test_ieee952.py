@@ -147,3 +147,25 @@ def test_angle_quantization_gives_q_over_root12():
         return term_estimates(fit_terms(curve, period, [(0, n)], 150, seed + 1), curve)
 
     assert_recovered(make, {"quantization": q / np.sqrt(12.0), "white_noise": N})
+
+
+def test_harrell_davis_matches_scipy():
+    """Harrell–Davis quantiles (Harrell & Davis, Biometrika 1982) equal
+    scipy.stats.mstats.hdquantiles (reference library)."""
+    from scipy.stats.mstats import hdquantiles
+
+    from noisecal.fit.ieee952 import harrell_davis
+
+    x = np.random.default_rng(8).gamma(2.0, size=200)
+    np.testing.assert_allclose(harrell_davis(x, [0.025, 0.5, 0.975]),
+                               hdquantiles(x, prob=[0.025, 0.5, 0.975]), rtol=1e-10)
+
+
+def test_term_zero_in_many_replicates_is_not_resolved():
+    """A term the bootstrap sets to zero in 2.5 % of replicates or more gets no interval."""
+    from noisecal.fit.ieee952 import pivot_interval
+
+    reps = np.r_[np.zeros(6), np.linspace(1.0, 2.0, 194)]  # 3 % zeros
+    assert pivot_interval(1.5, reps) is None
+    ok = pivot_interval(1.5, np.r_[np.zeros(4), np.linspace(1.0, 2.0, 196)])  # 2 % zeros
+    assert ok is not None and ok[0] < 1.5 < ok[1]
