@@ -22,7 +22,7 @@ test: $(STAMP)
 
 ## Long statistical runs: coverage over >= 400 seeded simulations.
 test-slow: $(STAMP)
-	$(BIN)/python -m pytest -q -m slow -rPX
+	$(BIN)/python -m pytest -q -m slow -rA
 
 ## Regenerate recordings/ from the committed script (fixed seed).
 demo-data: $(STAMP)
