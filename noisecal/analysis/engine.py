@@ -58,7 +58,7 @@ def _sum_one(x, m, code):
         s = 0.0
         comp = 0.0
         for i in range(m):
-            s += x[i + 2 * m] - 2.0 * x[i + m] + x[i]
+            s += _second(x, i, m)
         total = 0.0
         block = 0.0
         k = 0
@@ -71,9 +71,8 @@ def _sum_one(x, m, code):
                 block = 0.0
                 k = 0
             if j + 1 < count:
-                i_new = j + m
-                add = x[i_new + 2 * m] - 2.0 * x[i_new + m] + x[i_new]
-                sub = -(x[j + 2 * m] - 2.0 * x[j + m] + x[j])
+                add = _second(x, j + m, m)
+                sub = -_second(x, j, m)
                 # Neumaier-compensated running sum: no drift over 10^8 steps.
                 for term in (add, sub):
                     t = s + term
@@ -97,10 +96,7 @@ def _sum_one(x, m, code):
     k = 0
     count = 0
     for i in range(0, nx - span, stride):
-        if third:
-            d = x[i + 3 * m] - 3.0 * x[i + 2 * m] + 3.0 * x[i + m] - x[i]
-        else:
-            d = x[i + 2 * m] - 2.0 * x[i + m] + x[i]
+        d = _third(x, i, m) if third else _second(x, i, m)
         block += d * d
         count += 1
         k += 1
@@ -111,56 +107,50 @@ def _sum_one(x, m, code):
     return total + block, count
 
 
-@njit(cache=True, nogil=True)
-def _sum_overlapping2(x, m, count):
-    # Four accumulators per block, and reassociation allowed inside a block, so
-    # the compiler can use vector lanes; blocks are still summed in order.
-    total = 0.0
-    for start in range(0, count, _BLOCK):
-        stop = min(count, start + _BLOCK)
-        a0 = a1 = a2 = a3 = 0.0
-        i = start
-        while i + 3 < stop:
-            d0 = x[i + 2 * m] - 2.0 * x[i + m] + x[i]
-            d1 = x[i + 1 + 2 * m] - 2.0 * x[i + 1 + m] + x[i + 1]
-            d2 = x[i + 2 + 2 * m] - 2.0 * x[i + 2 + m] + x[i + 2]
-            d3 = x[i + 3 + 2 * m] - 2.0 * x[i + 3 + m] + x[i + 3]
-            a0 += d0 * d0
-            a1 += d1 * d1
-            a2 += d2 * d2
-            a3 += d3 * d3
-            i += 4
-        while i < stop:
-            d0 = x[i + 2 * m] - 2.0 * x[i + m] + x[i]
-            a0 += d0 * d0
-            i += 1
-        total += (a0 + a1) + (a2 + a3)
-    return total
+@njit(cache=True, nogil=True, inline="always")
+def _second(x, i, m):
+    return x[i + 2 * m] - 2.0 * x[i + m] + x[i]
 
 
-@njit(cache=True, nogil=True)
-def _sum_overlapping3(x, m, count):
-    total = 0.0
-    for start in range(0, count, _BLOCK):
-        stop = min(count, start + _BLOCK)
-        a0 = a1 = a2 = a3 = 0.0
-        i = start
-        while i + 3 < stop:
-            d0 = x[i + 3 * m] - 3.0 * x[i + 2 * m] + 3.0 * x[i + m] - x[i]
-            d1 = x[i + 1 + 3 * m] - 3.0 * x[i + 1 + 2 * m] + 3.0 * x[i + 1 + m] - x[i + 1]
-            d2 = x[i + 2 + 3 * m] - 3.0 * x[i + 2 + 2 * m] + 3.0 * x[i + 2 + m] - x[i + 2]
-            d3 = x[i + 3 + 3 * m] - 3.0 * x[i + 3 + 2 * m] + 3.0 * x[i + 3 + m] - x[i + 3]
-            a0 += d0 * d0
-            a1 += d1 * d1
-            a2 += d2 * d2
-            a3 += d3 * d3
-            i += 4
-        while i < stop:
-            d0 = x[i + 3 * m] - 3.0 * x[i + 2 * m] + 3.0 * x[i + m] - x[i]
-            a0 += d0 * d0
-            i += 1
-        total += (a0 + a1) + (a2 + a3)
-    return total
+@njit(cache=True, nogil=True, inline="always")
+def _third(x, i, m):
+    return x[i + 3 * m] - 3.0 * x[i + 2 * m] + 3.0 * x[i + m] - x[i]
+
+
+def _overlapping(term):
+    """A blocked sum of squared overlapping terms, compiled for one difference."""
+
+    @njit(cache=True, nogil=True)
+    def summed(x, m, count):
+        # Four accumulators per block: independent add chains the CPU can overlap;
+        # blocks are summed in order, so the error stays that of a blocked sum.
+        total = 0.0
+        for start in range(0, count, _BLOCK):
+            stop = min(count, start + _BLOCK)
+            a0 = a1 = a2 = a3 = 0.0
+            i = start
+            while i + 3 < stop:
+                d0 = term(x, i, m)
+                d1 = term(x, i + 1, m)
+                d2 = term(x, i + 2, m)
+                d3 = term(x, i + 3, m)
+                a0 += d0 * d0
+                a1 += d1 * d1
+                a2 += d2 * d2
+                a3 += d3 * d3
+                i += 4
+            while i < stop:
+                d0 = term(x, i, m)
+                a0 += d0 * d0
+                i += 1
+            total += (a0 + a1) + (a2 + a3)
+        return total
+
+    return summed
+
+
+_sum_overlapping2 = _overlapping(_second)
+_sum_overlapping3 = _overlapping(_third)
 
 
 @njit(cache=True, nogil=True)
