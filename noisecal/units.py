@@ -15,6 +15,7 @@ import numpy as np
 import pint
 
 from .errors import UnitError
+from .paths import cache_root
 
 STANDARD_GRAVITY = 9.80665  # m/s², 3rd CGPM (1901)
 
@@ -26,8 +27,6 @@ _PREFIX = {None: "", "m": "milli", "u": "micro", "µ": "micro"}
 @lru_cache(maxsize=1)
 def registry() -> pint.UnitRegistry:
     """The project's unit registry (pint defaults plus sensor conventions)."""
-    from .ingest.cache import cache_root
-
     try:
         # pint's own cache of parsed definitions halves its start-up time.
         ureg = pint.UnitRegistry(cache_folder=str(cache_root() / "pint"))

@@ -14,6 +14,7 @@ import tempfile
 from pathlib import Path
 
 from ..errors import InputError
+from ..paths import cache_root
 from ..types import Gap, Recording, SaturatedRun, Source
 from . import cache
 from .columnar import NpzSource, ParquetSource
@@ -99,7 +100,7 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
     size = path.stat().st_size
     tick = (lambda stage: (lambda done: progress(stage, done, size))) if progress else (lambda s: None)
     cached = use_cache and repair is None and source.format in CACHED
-    root = cache.cache_root() if cached else None
+    root = cache_root() if cached else None
     digest = cache.content_hash(path, root, tick("hash"))
     if cached:
         hit = cache.load(root, digest)

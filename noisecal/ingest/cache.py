@@ -27,14 +27,6 @@ import numpy as np
 LAYOUT = 1
 
 
-def cache_root() -> Path:
-    """The cache folder (not created)."""
-    if os.environ.get("NOISECAL_CACHE"):
-        return Path(os.environ["NOISECAL_CACHE"])
-    base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
-    return Path(base) / "noisecal"
-
-
 def file_digest(path: Path, progress=None) -> str:
     """SHA-256 of a file's bytes, read in 4 MiB blocks."""
     digest = hashlib.sha256()

@@ -37,6 +37,7 @@ class ParquetSource:
 
     def __init__(self, path: Path):
         import pyarrow.parquet as pq
+        import pyarrow.types as pt
 
         self.path = path
         try:
@@ -51,8 +52,6 @@ class ParquetSource:
             raise InputError(f"{path}: {len(self.headers)} column(s); a recording needs a "
                              "time column and at least one channel")
         for field in self._file.schema_arrow:
-            import pyarrow.types as pt
-
             if not (pt.is_integer(field.type) or pt.is_floating(field.type)):
                 raise InputError(f"{path}: column {field.name!r} is of type {field.type}, "
                                  "not numeric; store numbers")

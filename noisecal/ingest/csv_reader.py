@@ -161,7 +161,7 @@ class CsvSource:
                              "record some data")
 
     def _float_time_fallback(self, skip_rows: int, progress):
-        for i, (time, cols) in enumerate(self.blocks(False, progress)):
+        for time, cols in self.blocks(False, progress):
             if skip_rows > 0:
                 cut = min(skip_rows, time.shape[0])
                 skip_rows -= cut
