@@ -26,7 +26,7 @@ from ..fit.gauss_markov import fit_gauss_markov
 from ..fit.ieee952 import fit_terms, term_estimates
 from ..fit.simulate import TERM_NAMES
 from ..ingest import read_recording
-from ..types import AllanCurve, ChannelModel, FilterBlock, PsdCheck, Recording
+from ..types import ChannelModel, FilterBlock, Recording
 from ..units import customary
 from .progress import StageBars, progress_bar
 
