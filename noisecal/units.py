@@ -23,6 +23,22 @@ _HEADER = re.compile(r"^\s*(?P<name>[^\[\]]*?)\s*\[(?P<unit>[^\[\]]*)\]\s*$")
 _G_TOKEN = re.compile(r"(?<![A-Za-z_µ])(?P<prefix>m|u|µ)?g(?![A-Za-z_0-9])")
 _PREFIX = {None: "", "m": "milli", "u": "micro", "µ": "micro"}
 
+_DEG = np.pi / 180.0
+COMMON = {
+    "s": (1.0, "s"), "ms": (1e-3, "s"), "us": (1e-6, "s"), "µs": (1e-6, "s"),
+    "ns": (1e-9, "s"),
+    "rad/s": (1.0, "rad/s"), "deg/s": (_DEG, "rad/s"), "°/s": (_DEG, "rad/s"),
+    "dps": (_DEG, "rad/s"), "rpm": (2.0 * np.pi / 60.0, "rad/s"),
+    "rad": (1.0, "rad"), "deg": (_DEG, "rad"), "°": (_DEG, "rad"),
+    "m/s^2": (1.0, "m/s**2"), "m/s**2": (1.0, "m/s**2"), "m/s²": (1.0, "m/s**2"),
+    "g": (STANDARD_GRAVITY, "m/s**2"), "mg": (STANDARD_GRAVITY * 1e-3, "m/s**2"),
+    "m": (1.0, "m"), "mm": (1e-3, "m"), "cm": (1e-2, "m"), "m/s": (1.0, "m/s"),
+    "1": (1.0, "1"),
+}
+"""Linear units sensor logs use most, as (SI per unit, SI unit text): ingest
+skips loading pint's registry (a few tenths of a second) for these. The
+tests check every entry against pint."""
+
 
 @lru_cache(maxsize=1)
 def registry() -> pint.UnitRegistry:
@@ -98,6 +114,9 @@ def to_si(values: np.ndarray, unit: str, where: str) -> tuple[np.ndarray, str]:
     si_unit : str
         The SI unit, pint-parsable (``"1"`` for dimensionless).
     """
+    common = COMMON.get(unit.strip())
+    if common is not None:
+        return np.asarray(values, dtype=np.float64) * common[0], common[1]
     parsed = parse_unit(unit, where)
     q = registry().Quantity(np.asarray(values, dtype=np.float64), parsed).to_base_units()
     text = f"{q.units:~C}" or "1"
@@ -106,6 +125,9 @@ def to_si(values: np.ndarray, unit: str, where: str) -> tuple[np.ndarray, str]:
 
 def time_scale(unit: str, where: str) -> float:
     """Seconds per one unit of a time column; error if the unit is not a time."""
+    common = COMMON.get(unit.strip())
+    if common is not None and common[1] == "s":
+        return common[0]
     parsed = parse_unit(unit, where)
     q = registry().Quantity(1.0, parsed)
     if q.dimensionality != registry().Quantity(1.0, "s").dimensionality:

@@ -58,3 +58,16 @@ def test_header_without_unit_is_refused(cell):
 def test_unknown_unit_is_refused():
     with pytest.raises(UnitError, match="unknown unit"):
         to_si(np.array([1.0]), "furlongs per fortnite", "t")
+
+
+@pytest.mark.parametrize("unit", sorted(__import__("noisecal.units", fromlist=["COMMON"]).COMMON))
+def test_common_units_agree_with_pint(unit):
+    """Reference library: every entry of the fast table of common units gives the
+    scale and SI unit that the pint path (pint's registry with the sensor
+    conventions) gives for the same text."""
+    from noisecal import units
+
+    scale, si = units.COMMON[unit]
+    q = units.registry().Quantity(1.0, units.parse_unit(unit, "t")).to_base_units()
+    assert si == (f"{q.units:~C}" or "1")
+    assert scale == pytest.approx(q.magnitude, rel=1e-14)

@@ -11,6 +11,8 @@ from __future__ import annotations
 
 import shutil
 import tempfile
+import threading
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 from ..errors import InputError
@@ -20,7 +22,7 @@ from . import cache
 from .columnar import NpzSource, ParquetSource
 from .csv_reader import CsvSource
 from .header import parse_header
-from .sink import NpySink
+from .sink import NpySink, release_free_memory
 from .validate import REPAIRS, read_into_memory, stream, summarize
 
 SOURCES = {".csv": CsvSource, ".txt": CsvSource, ".parquet": ParquetSource,
@@ -101,42 +103,86 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
     tick = (lambda stage: (lambda done: progress(stage, done, size))) if progress else (lambda s: None)
     cached = use_cache and repair is None and source.format in CACHED
     root = cache_root() if cached else None
-    digest = cache.content_hash(path, root, tick("hash"))
-    if cached:
-        hit = cache.load(root, digest)
+    known = cache.known_hash(path, root)
+    if known is not None:
+        hit = cache.load(root, known)
         if hit is not None:
             return _recording(path, *hit)  # the header was checked when the entry was made
     header = parse_header(source.headers, str(path))
-    if cached:
-        tmp = cache.new_entry(root)
-        sink = NpySink(tmp, len(header.names))
-        try:
-            start = stream(source, header, sink, None, tick("read"))
-            time, cols = sink.finish()
-            meta = _meta(source, header, digest, size, start, time, cols, ())
-            del time, cols
-            cache.commit(tmp, root, digest, meta)
-        except BaseException:
-            sink.close()
-            shutil.rmtree(tmp, ignore_errors=True)
-            raise
-        hit = cache.load(root, digest)
-        if hit is None:
-            raise InputError(f"{cache.entry_dir(root, digest)}: the cache entry just "
-                             "written cannot be read; check the disk or pass --no-cache")
-        return _recording(path, *hit)
-    if repair is not None:
-        start, time, cols, note = read_into_memory(source, header, repair, tick("read"))
-    else:
-        # Stream through temporary files so memory holds one copy, not blocks + copy.
-        with tempfile.TemporaryDirectory(prefix="noisecal-") as tmp:
-            sink = NpySink(Path(tmp), len(header.names))
-            try:
-                start = stream(source, header, sink, None, tick("read"))
-                time, cols = sink.finish(in_memory=True)
-            finally:
-                sink.close()
-        note = None
+    with _Hasher(path, known, tick("hash")) as hasher:
+        if cached:
+            return _read_cached(path, source, header, size, root, hasher, tick("read"))
+        if repair is not None:
+            start, time, cols, note = read_into_memory(source, header, repair, tick("read"))
+        else:
+            # Stream through temporary files so memory holds one copy, not blocks + copy.
+            with tempfile.TemporaryDirectory(prefix="noisecal-") as tmp:
+                sink = NpySink(Path(tmp), len(header.names))
+                try:
+                    start = stream(source, header, sink, None, tick("read"))
+                    release_free_memory()
+                    time, cols = sink.finish(in_memory=True)
+                finally:
+                    sink.close()
+            note = None
+        digest = hasher.result()
     repairs = (f"--repair {repair}: {note}",) if note else ()
     meta = _meta(source, header, digest, size, start, time, cols, repairs)
     return _recording(path, meta, time, cols)
+
+
+class _Hasher:
+    """The input's SHA-256, computed on a thread beside the parse.
+
+    hashlib releases the GIL, so on two cores the hash costs little wall time;
+    leaving the block early (a bad file, Ctrl-C) stops it.
+    """
+
+    def __init__(self, path: Path, known: str | None, progress):
+        self._known = known
+        self._stop = threading.Event()
+        self._pool = None if known else ThreadPoolExecutor(1)
+        self._future = (None if known else
+                        self._pool.submit(cache.file_digest, path, progress, self._stop))
+
+    def result(self) -> str:
+        return self._known if self._future is None else self._future.result()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, kind, *rest):
+        if kind is not None:
+            self._stop.set()
+        if self._pool is not None:
+            self._pool.shutdown(wait=True)
+        return False
+
+
+def _read_cached(path, source, header, size, root, hasher, tick) -> Recording:
+    """Stream into a new cache entry, then serve the recording from it."""
+    tmp = cache.new_entry(root)
+    sink = NpySink(tmp, len(header.names))
+    try:
+        start = stream(source, header, sink, None, tick)
+        time, cols = sink.finish()
+        digest = hasher.result()
+        release_free_memory()
+        cache.remember(path, root, digest)
+        if cache.load(root, digest) is not None:
+            # Same bytes under another name or a new mtime: keep the entry there is.
+            sink.close()
+            shutil.rmtree(tmp, ignore_errors=True)
+        else:
+            meta = _meta(source, header, digest, size, start, time, cols, ())
+            del time, cols
+            cache.commit(tmp, root, digest, meta)
+    except BaseException:
+        sink.close()
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    hit = cache.load(root, digest)
+    if hit is None:
+        raise InputError(f"{cache.entry_dir(root, digest)}: the cache entry just "
+                         "written cannot be read; check the disk or pass --no-cache")
+    return _recording(path, *hit)

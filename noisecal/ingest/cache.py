@@ -27,14 +27,22 @@ import numpy as np
 LAYOUT = 1
 
 
-def file_digest(path: Path, progress=None) -> str:
-    """SHA-256 of a file's bytes, read in 4 MiB blocks."""
+def file_digest(path: Path, progress=None, stop=None) -> str | None:
+    """SHA-256 of a file's bytes, read in 4 MiB blocks.
+
+    ``stop`` (a ``threading.Event``) ends the work early and returns None; it
+    lets a read that failed abandon a hash running beside it.
+    """
     digest = hashlib.sha256()
     done = 0
-    with open(path, "rb") as fh:
-        for block in iter(lambda: fh.read(1 << 22), b""):
-            digest.update(block)
-            done += len(block)
+    buffer = bytearray(1 << 22)  # reused: no allocation churn beside the parser threads
+    view = memoryview(buffer)
+    with open(path, "rb", buffering=0) as fh:
+        while count := fh.readinto(buffer):
+            if stop is not None and stop.is_set():
+                return None
+            digest.update(view[:count])  # releases the GIL: runs beside the parser
+            done += count
             if progress:
                 progress(done)
     return digest.hexdigest()
@@ -45,22 +53,33 @@ def _stat_key(path: Path) -> str:
     return f"{path.resolve()}|{st.st_size}|{st.st_mtime_ns}|{st.st_ctime_ns}|{st.st_ino}"
 
 
+def _index(root: Path) -> dict:
+    try:
+        return json.loads((root / "index.json").read_text())
+    except (OSError, ValueError):
+        return {}
+
+
+def known_hash(path: Path, root: Path | None) -> str | None:
+    """The file's SHA-256 from the stat index, if the file is unchanged since."""
+    return _index(root).get(_stat_key(path)) if root else None
+
+
+def remember(path: Path, root: Path | None, digest: str) -> None:
+    """Record the file's hash in the stat index (the newest 1000 files are kept)."""
+    if root is None:
+        return
+    table = _index(root)
+    table[_stat_key(path)] = digest
+    _write_json(root / "index.json", dict(list(table.items())[-1000:]))
+
+
 def content_hash(path: Path, root: Path | None, progress=None) -> str:
     """The file's SHA-256, from the stat index when the file is unchanged."""
-    index = (root / "index.json") if root else None
-    key = _stat_key(path)
-    table = {}
-    if index and index.exists():
-        try:
-            table = json.loads(index.read_text())
-        except (OSError, ValueError):
-            table = {}
-        if key in table:
-            return table[key]
-    digest = file_digest(path, progress)
-    if index:
-        table[key] = digest
-        _write_json(index, dict(list(table.items())[-1000:]))
+    digest = known_hash(path, root)
+    if digest is None:
+        digest = file_digest(path, progress)
+        remember(path, root, digest)
     return digest
 
 

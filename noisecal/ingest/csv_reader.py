@@ -10,15 +10,25 @@ from __future__ import annotations
 import csv
 import io
 import warnings
+from collections import deque
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
 
 from ..errors import InputError
+from .sink import release_free_memory
 
 _SNIFF_BYTES = 8192
-BLOCK_ROWS = 1 << 16
-"""Rows per parsed block: small enough that a block's buffers stay a few MB."""
+BLOCK_BYTES = 1 << 21
+"""Bytes of CSV text per parsed block. Measured here (2 threads, 143 MB file): 2 MiB
+blocks hold 24 MB of parser memory, 4 MiB blocks 60–70 MB (glibc keeps the
+freed buffers of each thread), for 10 % more speed."""
+PARSE_THREADS = 2
+PARSE_AHEAD = 3
+"""Blocks submitted ahead of the one being written: bounds the text and frames held."""
+TRIM_EVERY = 8
+"""Blocks between two returns of freed parser memory to the system."""
 
 
 def _header_line(path: Path) -> tuple[int, str]:
@@ -114,12 +124,47 @@ class CsvSource:
         """Raise the error for the first bad row or cell (called on any parse trouble)."""
         _scan_for_problem(self.path, self.header_index, self.headers)
 
+    def _body_ranges(self):
+        """Byte ranges of about ``BLOCK_BYTES`` each, cut at line ends, after the header."""
+        size = self.path.stat().st_size
+        with open(self.path, "rb") as fh:
+            for _ in range(self.header_index + 1):
+                fh.readline()
+            start = fh.tell()
+            while start < size:
+                fh.seek(min(start + BLOCK_BYTES, size))
+                fh.readline()
+                end = min(fh.tell(), size)
+                yield start, end
+                start = end
+
+    def _parse_range(self, span, dtypes):
+        import pandas as pd
+
+        start, end = span
+        with open(self.path, "rb") as fh:
+            fh.seek(start)
+            text = fh.read(end - start)
+        try:
+            frame = pd.read_csv(io.BytesIO(text), header=None, names=list(dtypes),
+                                dtype=dtypes, engine="c", skip_blank_lines=True,
+                                index_col=False, encoding="utf-8")
+        except pd.errors.EmptyDataError:  # a block of blank lines
+            return None
+        del text
+        if frame.isna().to_numpy().any():
+            return "hole"
+        return [frame[j].to_numpy() for j in range(frame.shape[1])]
+
     def blocks(self, time_integer: bool, progress=None):
         """Yield ``(time, [columns])`` blocks of numbers as written in the file.
 
-        pandas' C parser reads ``BLOCK_ROWS`` rows at a time (measured here: the
-        same speed as pyarrow's streaming reader with half its memory); anything
-        it cannot parse sends us to the slow scan for a precise error.
+        The body is cut into byte ranges at line ends and each range is parsed
+        whole by pandas' C parser, two ranges at a time on two threads (its
+        tokenizer releases the GIL); blocks come out in file order. Measured
+        here: one whole-range parse is about twice as fast per byte as pandas'
+        own chunked reader. Anything it cannot parse sends us to the slow scan
+        for a precise error.
         """
         import pandas as pd
 
@@ -127,38 +172,52 @@ class CsvSource:
         if time_integer:
             dtypes[0] = np.int64
         rows = 0
-        with open(self.path, "rb") as fh:
-            try:
-                with warnings.catch_warnings():
-                    # pandas warns, and drops cells, when a row is longer than the header.
-                    warnings.simplefilter("error", pd.errors.ParserWarning)
-                    reader = pd.read_csv(fh, skiprows=self.header_index + 1, header=None,
-                                         names=list(range(len(self.headers))), dtype=dtypes,
-                                         engine="c", skip_blank_lines=True, index_col=False,
-                                         chunksize=BLOCK_ROWS, encoding="utf-8")
-                    with reader:
-                        for frame in reader:
-                            if frame.isna().to_numpy().any():
-                                self.problem()
-                            time = frame[0].to_numpy()
-                            cols = [frame[j].to_numpy() for j in range(1, frame.shape[1])]
-                            rows += time.shape[0]
-                            if progress:
-                                progress(fh.tell())
-                            yield time, cols
-            except InputError:
-                raise
-            except Exception:  # pandas' parser errors have no common base worth naming
-                self.problem()
-                if time_integer:
-                    # Fractional nanoseconds: read the time column as float64 instead.
-                    yield from self._float_time_fallback(rows, progress)
-                    return
-                raise InputError(f"{self.path}: the CSV body could not be parsed; check "
-                                 "the delimiter (commas) and quoting") from None
+        self._emitted = 0
+        try:
+            with warnings.catch_warnings():
+                # pandas warns, and drops cells, when a row is longer than the header;
+                # the filter is process-wide, so it holds in the worker threads too.
+                warnings.simplefilter("error", pd.errors.ParserWarning)
+                with ThreadPoolExecutor(PARSE_THREADS) as pool:
+                    pending: deque = deque()
+                    spans = self._body_ranges()
+                    for span in spans:
+                        pending.append((span[1], pool.submit(self._parse_range, span, dtypes)))
+                        if len(pending) < PARSE_AHEAD:
+                            continue
+                        rows += yield from self._emit(pending.popleft(), progress)
+                    while pending:
+                        rows += yield from self._emit(pending.popleft(), progress)
+        except InputError:
+            raise
+        except Exception:  # pandas' parser errors have no common base worth naming
+            self.problem()
+            if time_integer:
+                # Fractional nanoseconds: read the time column as float64 instead.
+                yield from self._float_time_fallback(rows, progress)
+                return
+            raise InputError(f"{self.path}: the CSV body could not be parsed; check "
+                             "the delimiter (commas) and quoting") from None
         if rows == 0:
             raise InputError(f"{self.path}: the header is there but no data rows follow; "
                              "record some data")
+
+    def _emit(self, item, progress):
+        end, future = item
+        arrays = future.result()
+        self._emitted += 1
+        if self._emitted % TRIM_EVERY == 0:
+            release_free_memory()
+        if isinstance(arrays, str):
+            self.problem()
+            raise InputError(f"{self.path}: a cell is empty or not a number; "
+                             "fix the row")  # the scan above names it; this is a guard
+        if progress:
+            progress(end)
+        if arrays is None or arrays[0].shape[0] == 0:
+            return 0
+        yield arrays[0], arrays[1:]
+        return arrays[0].shape[0]
 
     def _float_time_fallback(self, skip_rows: int, progress):
         for time, cols in self.blocks(False, progress):
