@@ -93,6 +93,13 @@ def bench_ingest(results, folder: Path):
                    fmt="%.9g")
     results["ingest_csv_bytes"] = path.stat().st_size
     t_pd, _ = best_of(lambda: pd.read_csv(path, engine="c"), repeat=3)
+    try:
+        # pandas >= 3.1 parses one file on every core; the one-thread figure shows
+        # how much of the gap that is.
+        with pd.option_context("mode.max_threads", 1):
+            t_pd1, _ = best_of(lambda: pd.read_csv(path, engine="c"), repeat=3)
+    except (KeyError, pd.errors.OptionError):
+        t_pd1 = t_pd
     env = dict(os.environ, PYTHONPATH=str(ROOT))
     firsts, ratios = [], []
     for k in range(3):
@@ -107,6 +114,8 @@ def bench_ingest(results, folder: Path):
     results["ingest_seconds_first_read"] = min(firsts)
     results["ingest_seconds_cached_read"] = float(warm[0])
     results["ingest_time_over_pandas"] = min(firsts) / t_pd
+    results["ingest_seconds_pandas_one_thread"] = t_pd1
+    results["ingest_time_over_pandas_one_thread"] = min(firsts) / t_pd1
     results["ingest_peak_rss_over_decoded"] = min(ratios)
     results["cached_read_speedup_vs_pandas"] = t_pd / float(warm[0])
 
@@ -156,7 +165,8 @@ TARGETS = {
 
 def main():
     results = {"machine": {"cpus": os.cpu_count(), "python": platform.python_version(),
-                           "platform": platform.platform()}}
+                           "platform": platform.platform(),
+                           "pandas": __import__("pandas").__version__}}
     with tempfile.TemporaryDirectory(prefix="noisecal-bench-") as tmp:
         folder = Path(tmp)
         print("deviation engine …", file=sys.stderr)
@@ -178,7 +188,7 @@ def main():
     for key, v in verdict.items():
         print(f"{key:<34} {v['value']:>12.4g}  {v['target']:<10} {'yes' if v['met'] else 'NO'}")
     for key in sorted(results):
-        if key.startswith("static_day"):
+        if key.startswith(("static_day", "ingest_seconds", "ingest_time_over_pandas_one")):
             print(f"{key:<34} {results[key]:>12.4g}")
     print(f"wrote {out}")
 
