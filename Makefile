@@ -27,6 +27,7 @@ test-slow: $(STAMP)
 ## Regenerate recordings/ from the committed script (fixed seed).
 demo-data: $(STAMP)
 	$(BIN)/python tools/make_demo_recordings.py
+	$(BIN)/python tools/make_drive_recordings.py
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache

@@ -41,6 +41,23 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--no-cache", action="store_true",
                    help="do not read or write the binary cache of validated recordings")
 
+    m = sub.add_parser("motion", help="measurement noise of a sensor against ground truth")
+    m.add_argument("recording", help="sensor recording (CSV, Parquet or .npz), time first")
+    m.add_argument("--truth", required=True, help="truth recording, same formats")
+    m.add_argument("--map", help="measurement map YAML (default: same channel names)")
+    m.add_argument("-o", "--output", required=True, help="YAML block to write")
+    m.add_argument("--plot", help="PNG path (default: beside the YAML)")
+    m.add_argument("--covariate", help="fit sigma^2 = a + b*x^2 against this truth quantity "
+                   "(speed, turn_rate, a truth channel, ...)")
+    m.add_argument("--gate", type=float, default=0.997,
+                   help="probability of the chi-square gate (default 0.997)")
+    m.add_argument("--max-offset", type=float, default=1.0,
+                   help="largest sensor-truth time offset searched, s (default 1)")
+    m.add_argument("--seed", type=int, default=1, help="seed of the robust fit (default 1)")
+    m.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    m.add_argument("--quiet", action="store_true", help="no progress bar")
+    m.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
+
     i = sub.add_parser("inspect", help="describe a recording and the problems found")
     i.add_argument("recording")
     i.add_argument("--repair", choices=["sort", "drop"])
@@ -65,6 +82,14 @@ def main(argv: list[str] | None = None) -> int:
                                 args.repair, args.overwrite, args.reps, args.seed,
                                 args.quiet, command, use_cache=not args.no_cache)
             print(summary(result))
+            print(f"wrote {args.output}")
+        elif args.command == "motion":
+            from .jobs.motion import run_motion, summary as motion_summary
+
+            result = run_motion(args.recording, args.truth, args.output, args.map, args.plot,
+                                args.covariate, args.gate, args.max_offset, args.overwrite,
+                                args.seed, args.quiet, command, use_cache=not args.no_cache)
+            print(motion_summary(result))
             print(f"wrote {args.output}")
         elif args.command == "inspect":
             from .jobs.inspect import run_inspect

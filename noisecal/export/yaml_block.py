@@ -124,12 +124,23 @@ def _represent_list(dumper, data):
 _Dumper.add_representer(list, _represent_list)
 
 
-def render(sections: dict) -> str:
-    """YAML text with a comment above each top-level section."""
-    lines = [f"# noisecal static characterisation ({LAYOUT})",
+def render(sections: dict, title: str | None = None, comments: dict | None = None) -> str:
+    """YAML text with a comment above each top-level section.
+
+    Parameters
+    ----------
+    sections : dict
+        Top-level sections in output order.
+    title : str, optional
+        First comment line (default: the static block's).
+    comments : dict, optional
+        Section name → comment (default: the static block's).
+    """
+    comments = _COMMENTS if comments is None else comments
+    lines = [f"# {title or f'noisecal static characterisation ({LAYOUT})'}",
              "# Values are SI. Intervals are 95 % unless stated.", ""]
     for key, value in sections.items():
-        for c in _COMMENTS.get(key, "").splitlines():
+        for c in comments.get(key, "").splitlines():
             lines.append(f"# {c}")
         lines.append(yaml.dump({key: value}, Dumper=_Dumper, sort_keys=False,
                                default_flow_style=False, allow_unicode=True, width=100).rstrip())

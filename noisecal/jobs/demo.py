@@ -1,4 +1,4 @@
-"""The demo: the committed bench recording through inspect and static."""
+"""The demo: the committed recordings through inspect, static and motion."""
 
 from __future__ import annotations
 
@@ -6,16 +6,20 @@ from pathlib import Path
 
 from ..errors import InputError
 from .inspect import run_inspect
+from .motion import run_motion
+from .motion import summary as motion_summary
 from .static import run_static, summary
 
 RECORDING = "recordings/bench_static.parquet"
+DRIVE = ("recordings/drive_linesensor.csv", "recordings/drive_truth.csv",
+         "recordings/drive_map.yaml")
 OUT_DIR = "reports/demo"
 
 
 def run_demo(root: str = ".", quiet: bool = False) -> str:
     """Run the demo from the project root; return what it prints.
 
-    Writes ``reports/demo/static.yaml`` and ``reports/demo/static.png``.
+    Writes ``reports/demo/static.yaml|png`` and ``reports/demo/motion.yaml|png``.
     """
     base = Path(root)
     rec = base / RECORDING
@@ -28,5 +32,11 @@ def run_demo(root: str = ".", quiet: bool = False) -> str:
     result = run_static(str(rec), str(out / "static.yaml"), str(out / "static.png"),
                         overwrite=True, quiet=quiet, command=f"noisecal demo ({RECORDING})")
     text.append(summary(result))
-    text.append(f"\nwrote {out / 'static.yaml'} and {out / 'static.png'}")
+    sensor, truth, mapping = (str(base / p) for p in DRIVE)
+    drive = run_motion(sensor, truth, str(out / "motion.yaml"), mapping,
+                       str(out / "motion.png"), overwrite=True, quiet=quiet,
+                       command=f"noisecal demo ({DRIVE[0]} against {DRIVE[1]})")
+    text += ["", motion_summary(drive)]
+    text.append(f"\nwrote {out / 'static.yaml'}, {out / 'static.png'}, "
+                f"{out / 'motion.yaml'} and {out / 'motion.png'}")
     return "\n".join(text)
