@@ -217,22 +217,32 @@ def estimate_offset(sensor: np.ndarray, truth: list, t: np.ndarray,
     res = optimize.minimize_scalar(loss, bounds=(coarse - span, coarse + span),
                                    method="bounded", options={"xatol": 1e-6 * max(step, 1e-3)})
     delta = float(res.x)
-    r = residuals(s, truth, tt, delta)
-    z = r / scale
-    inl = np.all(np.abs(z) <= HUBER_K * 2, axis=1)
+    inl = np.all(np.abs(residuals(s, truth, tt, delta) / scale) <= HUBER_K * 2, axis=1)
     if np.count_nonzero(inl) < 20:
         raise AnalysisError("fewer than 20 sensor samples agree with the truth at any "
                             "offset; check the mapping of sensor to truth channels")
-    # d r / d δ = + truth slope at t − δ; score per sample over inlier channels.
-    cov = np.atleast_2d(np.cov(r[inl], rowvar=False))
-    inv = np.linalg.pinv(cov)
+    # Final least squares over the samples the Huber fit calls inliers: the
+    # outliers' clipped pull on δ would add variance the interval cannot see.
+    s_in, t_in = s[inl], tt[inl]
+
+    def inlier_loss(d):
+        return float(np.sum((residuals(s_in, truth, t_in, d) / scale) ** 2))
+
+    res = optimize.minimize_scalar(inlier_loss, bounds=(delta - step, delta + step),
+                                   method="bounded", options={"xatol": 1e-6 * max(step, 1e-3)})
+    delta = float(res.x)
+    r = residuals(s, truth, tt, delta)
+    # d r / d δ = + truth slope at t − δ. The loss weighs each channel by 1/scale²
+    # (channels independently), so the sandwich uses the same weights; inliers
+    # only, where the Huber loss is quadratic.
+    weight = 1.0 / scale ** 2
     g = np.column_stack([series.slope(tt - delta) for series in truth])
     g_in, r_in = g[inl], r[inl]
-    hess = float(np.einsum("ij,jk,ik->", g_in, inv, g_in))
+    hess = float(np.sum(g_in * g_in * weight))
     if hess <= 0:
         raise AnalysisError("the truth shows no motion in the overlap; the time offset "
                             "cannot be estimated")
-    score = np.einsum("ij,jk,ik->i", g_in, inv, r_in)
+    score = np.sum(g_in * r_in * weight, axis=1)
     var = _long_run_variance(score) / hess ** 2
     half = stats.norm.ppf(0.5 + level / 2) * np.sqrt(var)
     return Alignment(delta, delta - half, delta + half, coarse, _usable(truth, t, delta))

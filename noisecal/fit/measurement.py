@@ -276,11 +276,10 @@ def fit_measurement(r: np.ndarray, names: tuple, units: tuple, period: float,
             if i == j:
                 R_low[i, i], R_high[i, i] = variance_interval(R[i, i], ne - 1, level)
             else:
-                # Fisher z of the correlation, mapped back with the two variances fixed.
-                rho = R[i, j] / np.sqrt(R[i, i] * R[j, j])
-                zr, se = np.arctanh(np.clip(rho, -0.999999, 0.999999)), 1 / np.sqrt(max(ne - 3, 1))
-                s = np.sqrt(R[i, i] * R[j, j])
-                R_low[i, j], R_high[i, j] = s * np.tanh(zr - z * se), s * np.tanh(zr + z * se)
+                # Wishart: var(S_ij) = (Σ_ij² + Σ_ii Σ_jj) / ν — the variances' own
+                # uncertainty included (a Fisher z of the correlation alone is too narrow).
+                se = np.sqrt((R[i, j] ** 2 + R[i, i] * R[j, j]) / max(ne - 1, 1))
+                R_low[i, j], R_high[i, j] = R[i, j] - z * se, R[i, j] + z * se
     channels = []
     notes = []
     for j, (name, unit) in enumerate(zip(names, units)):
