@@ -7,7 +7,7 @@ import shlex
 import sys
 
 from . import __version__
-from .errors import NoisecalError
+from .errors import InputError, NoisecalError
 
 EXIT_ERROR = 2
 
@@ -45,6 +45,9 @@ def _parser() -> argparse.ArgumentParser:
     m.add_argument("recording", help="sensor recording (CSV, Parquet or .npz), time first")
     m.add_argument("--truth", required=True, help="truth recording, same formats")
     m.add_argument("--map", help="measurement map YAML (default: same channel names)")
+    m.add_argument("--odometry", metavar="CONFIG",
+                   help="the recording is wheel odometry (encoder ticks or increments) "
+                   "described by this config YAML: fit the odometry motion model instead")
     m.add_argument("-o", "--output", required=True, help="YAML block to write")
     m.add_argument("--plot", help="PNG path (default: beside the YAML)")
     m.add_argument("--covariate", help="fit sigma^2 = a + b*x^2 against this truth quantity "
@@ -82,6 +85,17 @@ def main(argv: list[str] | None = None) -> int:
                                 args.repair, args.overwrite, args.reps, args.seed,
                                 args.quiet, command, use_cache=not args.no_cache)
             print(summary(result))
+            print(f"wrote {args.output}")
+        elif args.command == "motion" and args.odometry:
+            from .jobs.odometry import run_odometry, summary as odometry_summary
+
+            if args.map or args.covariate:
+                raise InputError("--odometry takes the pose channels from its config; "
+                                 "leave out --map and --covariate")
+            result = run_odometry(args.recording, args.truth, args.odometry, args.output,
+                                  args.plot, args.max_offset, args.overwrite, args.quiet,
+                                  command, use_cache=not args.no_cache)
+            print(odometry_summary(result))
             print(f"wrote {args.output}")
         elif args.command == "motion":
             from .jobs.motion import run_motion, summary as motion_summary

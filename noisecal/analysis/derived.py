@@ -121,3 +121,29 @@ def truth_series(rec: Recording, mapping, quantity: str, where: str) -> tuple[Tr
     if unit == "rad":
         return TruthSeries(t, np.unwrap(values), True, holes), unit
     return TruthSeries(t, values, False, holes), unit
+
+
+def rate_series(rec: Recording, pose: dict, span: float, where: str):
+    """Speed and turn rate of the truth as centred differences over ``span`` seconds.
+
+    Compared with a sensor's own rates over the same span (e.g. from encoder
+    counts), both sides then carry the same smoothing, and the alignment sees
+    no difference in their response to acceleration.
+
+    Returns
+    -------
+    speed, turn_rate : TruthSeries
+        m/s and rad/s at the truth's sample times (ends trimmed by span/2).
+    """
+    t = _abs_time(rec)
+    x, y, yaw = _pose(rec, pose, where)
+    h = 0.5 * span
+    keep = (t - h >= t[0]) & (t + h <= t[-1])
+    tk = t[keep]
+
+    def diff(v):
+        return (np.interp(tk + h, t, v) - np.interp(tk - h, t, v)) / span
+
+    holes = gaps(rec)
+    return (TruthSeries(tk, np.hypot(diff(x), diff(y)), False, holes),
+            TruthSeries(tk, diff(yaw), False, holes))

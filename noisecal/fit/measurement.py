@@ -18,11 +18,12 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import stats
 
 from ..analysis.residuals import (Shape, acf, effective_size, ljung_box, min_cov_det,
                                   shape, truncation_factor)
 from ..types import Estimate
+from . import variance_model
 
 GATE_PROBABILITY = 0.997
 LJUNG_BOX_LAGS = 20
@@ -151,37 +152,12 @@ def variance_law(r: np.ndarray, x: np.ndarray, n_eff: float, unit: str, x_unit: 
         interval reaches zero), and ``covariance`` of (a, b).
     """
     n = r.shape[0]
-    r2 = r * r
-    x2 = x * x
-    A = np.column_stack([np.ones(n), x2])
-
-    def nll(theta):
-        v = A @ theta
-        return 0.5 * np.sum(np.log(v) + r2 / v)
-
-    def grad(theta):
-        v = A @ theta
-        return 0.5 * A.T @ (1 / v - r2 / v ** 2)
-
-    start = np.array([np.mean(r2), 0.0])
-    floor = 1e-12 * max(float(np.mean(r2)), 1e-300)
-    res = optimize.minimize(nll, start + [0, floor], jac=grad, method="L-BFGS-B",
-                            bounds=[(floor, None), (0.0, None)])
-    theta = res.x
-    v = A @ theta
-    info = 0.5 * (A / v[:, None]).T @ (A / v[:, None]) * (n_eff / n)
-    cov = np.linalg.pinv(info)
-    z = stats.norm.ppf(0.5 + level / 2)
-    out = {}
-    units = {"a": f"({unit})^2", "b": f"({unit})^2/({x_unit})^2"}
-    for j, key in enumerate(("a", "b")):
-        se = float(np.sqrt(max(cov[j, j], 0.0)))
-        lo, hi = theta[j] - z * se, theta[j] + z * se
-        method = "Gaussian maximum likelihood, Fisher interval with effective sample size"
-        if lo <= 0:
-            out[key] = Estimate.bound(max(hi, 0.0), units[key], method + " (upper bound)", level)
-        else:
-            out[key] = Estimate(float(theta[j]), float(lo), float(hi), units[key], method, level)
+    A = np.column_stack([np.ones(n), x * x])
+    theta, cov = variance_model.fit(r * r, A, n_eff / n)
+    units = (f"({unit})^2", f"({unit})^2/({x_unit})^2")
+    out = variance_model.estimates(theta, cov, ("a", "b"), units, "Gaussian maximum "
+                                   "likelihood, Fisher interval with effective sample size",
+                                   level)
     out["covariance"] = cov
     return out
 

@@ -150,3 +150,93 @@ def check_quantity(mapping: MeasurementMap, quantity: str, where: str) -> None:
                              "beacon.<id>.bearing")
         if parts[1] not in mapping.beacons:
             raise InputError(f"{where}: beacon {parts[1]!r} is not in the map's 'beacons:'")
+
+
+@dataclass(frozen=True)
+class OdometryConfig:
+    """How to read odometry from a recording, and which truth channels are the pose.
+
+    Attributes
+    ----------
+    kind : {"encoders", "increments"}
+    channels : dict
+        encoders: ``left``, ``right`` (cumulative counts); increments: ``dx``,
+        ``dy`` (m) and ``dyaw`` (rad), each row's motion in the previous row's frame.
+    ticks_per_rev, wheel_radius_m, track_width_m : float or None
+        Encoder geometry (encoders only).
+    window_s : float or None
+        Comparison window, s (encoders; increments use one row per window).
+    pose : dict
+        Truth channels ``x``, ``y``, ``yaw``.
+    source : str
+    """
+
+    kind: str
+    channels: dict
+    ticks_per_rev: float | None
+    wheel_radius_m: float | None
+    track_width_m: float | None
+    window_s: float | None
+    pose: dict
+    source: str
+
+
+def _positive(data, key, where):
+    value = data.get(key)
+    if not isinstance(value, (int, float)) or isinstance(value, bool) or \
+            not np.isfinite(value) or value <= 0:
+        raise InputError(f"{where}: '{key}' must be a positive number")
+    return float(value)
+
+
+def read_odometry_config(path: str | Path) -> OdometryConfig:
+    """Read and check an odometry config file (noisecal's own layout)::
+
+        encoders: {left: left_ticks, right: right_ticks, ticks_per_rev: 4096,
+                   wheel_radius_m: 0.16, track_width_m: 0.62}
+        window_s: 0.5
+        pose: {x: x, y: y, yaw: yaw}
+
+    or ``increments: {dx: odo_dx, dy: odo_dy, dyaw: odo_dyaw}`` instead of
+    ``encoders``.
+    """
+    path = Path(path)
+    where = str(path)
+    try:
+        data = yaml.safe_load(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError(f"{path}: no such odometry config; check the path") from None
+    except (OSError, UnicodeDecodeError, yaml.YAMLError):
+        raise InputError(f"{path}: cannot read the odometry config as YAML; fix the syntax") \
+            from None
+    if not isinstance(data, dict) or ("encoders" in data) == ("increments" in data):
+        raise InputError(f"{path}: an odometry config has exactly one of 'encoders:' "
+                         "(left, right, ticks_per_rev, wheel_radius_m, track_width_m) or "
+                         "'increments:' (dx, dy, dyaw)")
+    unknown = set(data) - {"encoders", "increments", "window_s", "pose"}
+    if unknown:
+        raise InputError(f"{path}: unknown key(s) {', '.join(sorted(unknown))}")
+    pose = {"x": "x", "y": "y", "yaw": "yaw"}
+    if "pose" in data:
+        if not isinstance(data["pose"], dict) or set(data["pose"]) - set(pose):
+            raise InputError(f"{path}: 'pose' maps x, y and yaw to truth channel names")
+        pose.update({k: str(v) for k, v in data["pose"].items()})
+    if "encoders" in data:
+        enc = data["encoders"]
+        if not isinstance(enc, dict):
+            raise InputError(f"{path}: 'encoders' must be a mapping")
+        for key in ("left", "right"):
+            if not isinstance(enc.get(key), str):
+                raise InputError(f"{where}: encoders need '{key}': the channel of cumulative "
+                                 "counts")
+        window = _positive(data, "window_s", where) if "window_s" in data else 0.5
+        return OdometryConfig("encoders", {"left": enc["left"], "right": enc["right"]},
+                              _positive(enc, "ticks_per_rev", where),
+                              _positive(enc, "wheel_radius_m", where),
+                              _positive(enc, "track_width_m", where), window, pose, where)
+    inc = data["increments"]
+    if not isinstance(inc, dict) or not all(isinstance(inc.get(k), str)
+                                            for k in ("dx", "dy", "dyaw")):
+        raise InputError(f"{path}: 'increments' names the channels dx, dy (m) and dyaw (rad)")
+    return OdometryConfig("increments", {k: inc[k] for k in ("dx", "dy", "dyaw")}, None, None,
+                          None, None, pose, where)

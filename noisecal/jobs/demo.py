@@ -8,18 +8,22 @@ from ..errors import InputError
 from .inspect import run_inspect
 from .motion import run_motion
 from .motion import summary as motion_summary
+from .odometry import run_odometry
+from .odometry import summary as odometry_summary
 from .static import run_static, summary
 
 RECORDING = "recordings/bench_static.parquet"
 DRIVE = ("recordings/drive_linesensor.csv", "recordings/drive_truth.csv",
          "recordings/drive_map.yaml")
+ENCODERS = ("recordings/encoder_ticks.csv", "recordings/encoder_truth.csv",
+            "recordings/encoder_config.yaml")
 OUT_DIR = "reports/demo"
 
 
 def run_demo(root: str = ".", quiet: bool = False) -> str:
     """Run the demo from the project root; return what it prints.
 
-    Writes ``reports/demo/static.yaml|png`` and ``reports/demo/motion.yaml|png``.
+    Writes ``static``, ``motion`` and ``odometry`` ``.yaml`` and ``.png`` in ``reports/demo/``.
     """
     base = Path(root)
     rec = base / RECORDING
@@ -37,6 +41,10 @@ def run_demo(root: str = ".", quiet: bool = False) -> str:
                        str(out / "motion.png"), overwrite=True, quiet=quiet,
                        command=f"noisecal demo ({DRIVE[0]} against {DRIVE[1]})")
     text += ["", motion_summary(drive)]
-    text.append(f"\nwrote {out / 'static.yaml'}, {out / 'static.png'}, "
-                f"{out / 'motion.yaml'} and {out / 'motion.png'}")
+    ticks, truth, config = (str(base / p) for p in ENCODERS)
+    wheels = run_odometry(ticks, truth, config, str(out / "odometry.yaml"),
+                          str(out / "odometry.png"), overwrite=True, quiet=quiet,
+                          command=f"noisecal demo ({ENCODERS[0]} against {ENCODERS[1]})")
+    text += ["", odometry_summary(wheels)]
+    text.append(f"\nwrote static, motion and odometry .yaml and .png into {out}")
     return "\n".join(text)
