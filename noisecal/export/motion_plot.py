@@ -81,26 +81,30 @@ def _channel_row(axes, res, j):
         ax.set_title(f"{ch.name} against {ch.law['covariate']}: ±1σ, ±2σ of the law", fontsize=9)
         ax.set_xlabel(f"{ch.law['covariate']} [{res.covariate_unit}]")
     else:
-        lags = np.arange(ch.acf.shape[0]) * res.sensor.period
-        ax.bar(lags, ch.acf, width=0.8 * res.sensor.period, color=_IN)
-        band = 1.96 / np.sqrt(np.count_nonzero(inl))
-        ax.axhspan(-band, band, color="0.85")
-        ax.set_title(f"{ch.name}: autocorrelation (Ljung-Box p = {ch.ljung_box_p:.2g})",
-                     fontsize=9)
-        ax.set_xlabel("lag [s]")
+        ax.text(0.5, 0.5, "no covariate named\n(--covariate speed, range, ...)",
+                ha="center", va="center", transform=ax.transAxes, fontsize=8, color="0.4")
+        ax.set_axis_off()
+    ax = axes[4]
+    lags = np.arange(ch.acf.shape[0]) * res.sensor.period
+    ax.bar(lags, ch.acf, width=0.8 * res.sensor.period, color=_IN)
+    band = 1.96 / np.sqrt(np.count_nonzero(inl))
+    ax.axhspan(-band, band, color="0.85")
+    ax.set_title(f"{ch.name}: autocorrelation (Ljung-Box p = {ch.ljung_box_p:.2g})",
+                 fontsize=9)
+    ax.set_xlabel("lag [s]")
 
 
 def motion_figure(res, path: Path) -> None:
     """Residual figure of a motion result, written atomically as PNG.
 
     One row per channel (histogram with Gaussian and robust fits, QQ plot,
-    residuals over time, residuals against the covariate or the ACF), and for
+    residuals over time, residuals against the covariate, the ACF), and for
     two or more channels the first two channels' scatter with the inlier R's
     1-σ ellipse and the gate's level curve.
     """
     c = len(res.model.order)
     rows = c + (1 if c >= 2 else 0)
-    fig, axes = plt.subplots(rows, 4, figsize=(18, 3.6 * rows), squeeze=False)
+    fig, axes = plt.subplots(rows, 5, figsize=(22, 3.6 * rows), squeeze=False)
     for j in range(c):
         _channel_row(axes[j], res, j)
     if c >= 2:

@@ -46,7 +46,8 @@ class OdometryResult:
     model : OdometryModel
     slow_check : dict or None
         Encoders: translation-error variance of the slowest tenth of the windows
-        against the model there (quantization floor included).
+        against the model there (quantization floor included), and the spread
+        of the per-sample errors (keys ``step_*``) beside one step's quantization.
     step : dict
         Per-step process noise (see :func:`noisecal.fit.odometry.step_noise`).
     sections : dict
@@ -83,6 +84,8 @@ def _odometry_motion(rec: Recording, cfg: OdometryConfig):
     rate : tuple of (times, speed, turn_rate, span)
         Rates over intervals of ``span`` s, at their midpoints, for alignment.
     window_s : float
+    track : tuple of ndarray, shape (n,) each, or None
+        Encoders: the dead-reckoned pose (x, y, θ) at every sample.
     """
     t = np.asarray(rec.time)
     where = f"{cfg.source}"
@@ -103,7 +106,7 @@ def _odometry_motion(rec: Recording, cfg: OdometryConfig):
         speed = np.hypot(x[m:] - x[:-m], y[m:] - y[:-m]) / dt
         turn = (th[m:] - th[:-m]) / dt
         return bounds, motion, (0.5 * (t[m:] + t[:-m]), speed, turn, m * rec.period), \
-            k * rec.period
+            k * rec.period, (x, y, th)
     dx = _channel(rec, cfg.channels["dx"], "m", where)
     dy = _channel(rec, cfg.channels["dy"], "m", where)
     dyaw = _channel(rec, cfg.channels["dyaw"], "rad", where)
@@ -112,7 +115,7 @@ def _odometry_motion(rec: Recording, cfg: OdometryConfig):
     motion = np.column_stack(decompose(zero, zero, zero, dx[1:], dy[1:], dyaw[1:]))
     dt = np.diff(t)
     return bounds, motion, (t[:-1] + 0.5 * dt, np.hypot(dx[1:], dy[1:]) / dt, dyaw[1:] / dt,
-                            float(np.median(dt))), float(np.median(dt))
+                            float(np.median(dt))), float(np.median(dt)), None
 
 
 def _slow_check(model: OdometryModel) -> dict:
@@ -127,12 +130,32 @@ def _slow_check(model: OdometryModel) -> dict:
             "quantization_share": float(model.floor[1] / modelled)}
 
 
+def _per_step(odo, track, truth_pose, offset, cfg) -> dict:
+    """Spread of the per-sample translation and rotation errors against the truth,
+    beside the quantization floor of one sample step (which dominates at a high rate)."""
+    t = odo.start_time + np.asarray(odo.time) - offset
+    x, y, yaw = truth_pose
+    ok = (t >= x.time[0]) & (t <= x.time[-1])
+    idx = np.flatnonzero(ok[:-1] & ok[1:])
+    ox, oy, oth = track
+    tx, ty, tth = (s.at(t) for s in truth_pose)
+    d_odo = np.hypot(ox[idx + 1] - ox[idx], oy[idx + 1] - oy[idx])
+    d_true = np.hypot(tx[idx + 1] - tx[idx], ty[idx + 1] - ty[idx])
+    r_odo = oth[idx + 1] - oth[idx]
+    r_true = tth[idx + 1] - tth[idx]
+    q = quantization(cfg.ticks_per_rev, cfg.wheel_radius_m, cfg.track_width_m)
+    return {"step_translation_error_sd_m": float(np.std(d_odo - d_true)),
+            "step_rotation_error_sd_rad": float(np.std(r_odo - r_true)),
+            "step_quantization_translation_sd_m": float(np.sqrt(q["translation_variance_m2"])),
+            "step_quantization_rotation_sd_rad": float(np.sqrt(q["rotation_variance_rad2"]))}
+
+
 def analyse(odo: Recording, truth: Recording, cfg: OdometryConfig, max_offset: float = 1.0,
             command: str = "") -> OdometryResult:
     """Fit the odometry model of a drive against truth."""
     if not (np.isfinite(max_offset) and max_offset > 0):
         raise InputError(f"--max-offset {max_offset}: give a positive time in s")
-    bounds, motion, (tm, speed, turn, span), window_s = _odometry_motion(odo, cfg)
+    bounds, motion, (tm, speed, turn, span), window_s, track = _odometry_motion(odo, cfg)
     mapping = MeasurementMap({}, cfg.pose, source=cfg.source)
     where = f"{cfg.source}, pose"
     truth_speed, truth_turn = rate_series(truth, cfg.pose, span, where)
@@ -165,7 +188,10 @@ def analyse(odo: Recording, truth: Recording, cfg: OdometryConfig, max_offset: f
                             "drive while recording")
     start_s = np.asarray(odo.time)[bounds[moving, 0]]
     model = fit_odometry(motion[moving], true[moving], start_s, window_s, floor)
-    slow = _slow_check(model) if cfg.kind == "encoders" else None
+    slow = None
+    if cfg.kind == "encoders":
+        slow = _slow_check(model)
+        slow.update(_per_step(odo, track, (x, y, yaw), alignment.offset, cfg))
     keep = ~model.slip
     step = step_noise(model, float(np.median(model.motion_true[keep, 1]) / window_s),
                       float(np.median(np.abs(model.motion_true[keep, 0] +
@@ -195,8 +221,10 @@ def _sections(res: OdometryResult, max_offset: float, command: str) -> dict:
         q = quantization(cfg.ticks_per_rev, cfg.wheel_radius_m, cfg.track_width_m)
         out["quantization"] = {
             **{k: num(v) for k, v in q.items()},
-            "slowest_windows": ({k: num(v) for k, v in res.slow_check.items()}
-                                if res.slow_check else None),
+            "slowest_windows": {k: num(v) for k, v in res.slow_check.items()
+                                if not k.startswith("step_")},
+            "per_step": {k[5:]: num(v) for k, v in res.slow_check.items()
+                         if k.startswith("step_")},
             "rule": "one count of error at each end of a window, uniform: q^2/12 per "
                     "translation (Widrow & Kollar)",
         }
