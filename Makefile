@@ -28,6 +28,7 @@ test-slow: $(STAMP)
 demo-data: $(STAMP)
 	$(BIN)/python tools/make_demo_recordings.py
 	$(BIN)/python tools/make_drive_recordings.py
+	$(BIN)/python tools/make_camera_recordings.py
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache

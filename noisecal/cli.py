@@ -61,6 +61,22 @@ def _parser() -> argparse.ArgumentParser:
     m.add_argument("--quiet", action="store_true", help="no progress bar")
     m.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
 
+    c = sub.add_parser("targets", help="camera measurement noise from surveyed targets")
+    c.add_argument("detections", help="detections CSV: time [s], id, u [px], v [px][, score]")
+    c.add_argument("--survey", required=True, help="survey CSV: id, x [m], y [m], z [m][, sigma]")
+    c.add_argument("--camera", required=True, help="camera YAML: intrinsics, distortion, pose")
+    c.add_argument("--poses", help="per-frame platform poses (time, x, y, z [m], roll, pitch, "
+                   "yaw [rad], world-from-body); the camera file's pose is then body-from-camera")
+    c.add_argument("-o", "--output", required=True, help="YAML block to write")
+    c.add_argument("--plot", help="PNG path (default: beside the YAML)")
+    c.add_argument("--ground", choices=["ray", "homography", "dlt"], default="ray",
+                   help="pixels to ground: ray-plane (default), the camera file's homography, "
+                   "or one estimated by normalized DLT from the floor targets")
+    c.add_argument("--gate", type=float, default=0.997,
+                   help="probability of the chi-square gate (default 0.997)")
+    c.add_argument("--seed", type=int, default=1, help="seed (robust fit, Monte Carlo)")
+    c.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+
     i = sub.add_parser("inspect", help="describe a recording and the problems found")
     i.add_argument("recording")
     i.add_argument("--repair", choices=["sort", "drop"])
@@ -104,6 +120,14 @@ def main(argv: list[str] | None = None) -> int:
                                 args.covariate, args.gate, args.max_offset, args.overwrite,
                                 args.seed, args.quiet, command, use_cache=not args.no_cache)
             print(motion_summary(result))
+            print(f"wrote {args.output}")
+        elif args.command == "targets":
+            from .jobs.targets import run_targets, summary as targets_summary
+
+            result = run_targets(args.detections, args.survey, args.camera, args.output,
+                                 args.plot, args.ground, args.gate, args.overwrite, args.seed,
+                                 command, args.poses)
+            print(targets_summary(result))
             print(f"wrote {args.output}")
         elif args.command == "inspect":
             from .jobs.inspect import run_inspect

@@ -27,6 +27,7 @@ from . import variance_model
 
 GATE_PROBABILITY = 0.997
 LJUNG_BOX_LAGS = 20
+REGATE_PASSES = 10
 COLOURED_P = 0.01
 """Ljung–Box p-value below which residuals are called coloured."""
 
@@ -228,6 +229,20 @@ def fit_measurement(r: np.ndarray, names: tuple, units: tuple, period: float,
         if np.any(scale != 1):
             robust = min_cov_det(r / scale, seed=seed)
             inl = robust.distances <= gamma
+    # Re-gate with the inliers' own mean and (cut-corrected) covariance until the
+    # set holds: the MCD scatter is less efficient, and a gate drawn with it would
+    # carry its error into R.
+    z = r / scale
+    factor0 = truncation_factor(gate_probability, c)
+    for _ in range(REGATE_PASSES):
+        loc = z[inl].mean(axis=0)
+        cov = np.atleast_2d(np.cov(z[inl], rowvar=False)) / factor0
+        diff = z - loc
+        d2 = np.einsum("ij,ij->i", diff, np.linalg.solve(cov, diff.T).T)
+        new = d2 <= gamma
+        if np.array_equal(new, inl):
+            break
+        inl = new
     k_out = int(n - np.count_nonzero(inl))
     lo, hi = clopper_pearson(k_out, n, level)
     # A Gaussian inlier falls outside the gate with probability 1 - p: the

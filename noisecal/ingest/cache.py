@@ -28,14 +28,14 @@ LAYOUT = 1
 
 
 def file_digest(path: Path, progress=None, stop=None) -> str | None:
-    """SHA-256 of a file's bytes, read in 4 MiB blocks.
+    """SHA-256 of a file's bytes, read in 1 MiB blocks.
 
     ``stop`` (a ``threading.Event``) ends the work early and returns None; it
     lets a read that failed abandon a hash running beside it.
     """
     digest = hashlib.sha256()
     done = 0
-    buffer = bytearray(1 << 22)  # reused: no allocation churn beside the parser threads
+    buffer = bytearray(1 << 20)  # reused: no allocation churn beside the parser threads
     view = memoryview(buffer)
     with open(path, "rb", buffering=0) as fh:
         while count := fh.readinto(buffer):

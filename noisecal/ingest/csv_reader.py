@@ -27,7 +27,7 @@ freed buffers of each thread), for 10 % more speed."""
 PARSE_THREADS = 2
 PARSE_AHEAD = 3
 """Blocks submitted ahead of the one being written: bounds the text and frames held."""
-TRIM_EVERY = 8
+TRIM_EVERY = 4
 """Blocks between two returns of freed parser memory to the system."""
 
 

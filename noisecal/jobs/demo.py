@@ -11,10 +11,14 @@ from .motion import summary as motion_summary
 from .odometry import run_odometry
 from .odometry import summary as odometry_summary
 from .static import run_static, summary
+from .targets import run_targets
+from .targets import summary as targets_summary
 
 RECORDING = "recordings/bench_static.parquet"
 DRIVE = ("recordings/drive_linesensor.csv", "recordings/drive_truth.csv",
          "recordings/drive_map.yaml")
+YARD = ("recordings/yard_detections.csv", "recordings/yard_survey.csv",
+        "recordings/yard_camera.yaml")
 ENCODERS = ("recordings/encoder_ticks.csv", "recordings/encoder_truth.csv",
             "recordings/encoder_config.yaml")
 OUT_DIR = "reports/demo"
@@ -23,7 +27,8 @@ OUT_DIR = "reports/demo"
 def run_demo(root: str = ".", quiet: bool = False) -> str:
     """Run the demo from the project root; return what it prints.
 
-    Writes ``static``, ``motion`` and ``odometry`` ``.yaml`` and ``.png`` in ``reports/demo/``.
+    Writes ``static``, ``motion``, ``odometry`` and ``targets`` ``.yaml`` and ``.png`` in
+    ``reports/demo/``.
     """
     base = Path(root)
     rec = base / RECORDING
@@ -46,5 +51,10 @@ def run_demo(root: str = ".", quiet: bool = False) -> str:
                           str(out / "odometry.png"), overwrite=True, quiet=quiet,
                           command=f"noisecal demo ({ENCODERS[0]} against {ENCODERS[1]})")
     text += ["", odometry_summary(wheels)]
-    text.append(f"\nwrote static, motion and odometry .yaml and .png into {out}")
+    detections, survey, camera = (str(base / p) for p in YARD)
+    yard = run_targets(detections, survey, camera, str(out / "targets.yaml"),
+                       str(out / "targets.png"), overwrite=True,
+                       command=f"noisecal demo ({YARD[0]})")
+    text += ["", targets_summary(yard)]
+    text.append(f"\nwrote static, motion, odometry and targets .yaml and .png into {out}")
     return "\n".join(text)
