@@ -53,3 +53,34 @@ def write_text(path: Path, text: str) -> None:
     """Write text atomically."""
     with atomic_path(path) as tmp:
         tmp.write_text(text, encoding="utf-8")
+
+
+def output_paths(out: str, plot: str | None, inputs: list, overwrite: bool):
+    """The YAML and PNG paths of a job, checked before any work is done.
+
+    Parameters
+    ----------
+    out : str
+        The YAML block (``.yaml``/``.yml``).
+    plot : str or None
+        The PNG; default the YAML path with ``.png``.
+    inputs : list of Path
+        Files the outputs must not overwrite.
+    overwrite : bool
+        Replace existing outputs.
+
+    Returns
+    -------
+    out_path, plot_path : Path
+    """
+    from ..errors import InputError
+
+    out_path = Path(out)
+    plot_path = Path(plot) if plot else out_path.with_suffix(".png")
+    if out_path.suffix.lower() not in (".yaml", ".yml"):
+        raise InputError(f"-o {out}: the output is a YAML block; give a .yaml path")
+    if plot_path.resolve() == out_path.resolve():
+        raise InputError(f"--plot {plot_path}: the same path as -o; give the plot its own path")
+    for target in (out_path, plot_path):
+        check_target(target, [Path(p) for p in inputs], overwrite)
+    return out_path, plot_path

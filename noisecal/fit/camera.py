@@ -209,12 +209,13 @@ def fit_camera(camera, survey, detections, gate_probability: float = GATE_PROBAB
         # on k − 1 dof would understate it. Satterthwaite turns the sum into one
         # chi-square.
         v1, d1 = pixel.R[j, j], n_eff[j] - 1
-        dev2 = (means[:, j] - means[:, j].mean()) ** 2
-        spread = float(np.sum(dev2) / max(k - 1, 1))
-        # The empirical figure is itself noisy with few targets: never below what a
-        # homogeneous set of k targets would give.
-        var_spread = (max(float(np.var(dev2, ddof=1) / k), 2 * spread ** 2 / (k - 1))
-                      if k > 2 else np.inf)
+        # The spread's variance from the model in which target k's offset has
+        # variance survey_k + systematic + jitter / n_k: targets near the camera
+        # carry most of the survey's share, so a chi-square on k − 1 dof would
+        # understate it, and the squared offsets of few targets are too noisy to
+        # estimate it from.
+        per_target = S[:, j, j] + max(R_sys[j, j], 0.0) + v1 / counts
+        var_spread = 2 * float(np.sum(per_target ** 2)) / (k - 1) ** 2 if k > 2 else np.inf
         total = max(v1 + R_sys[j, j], 1e-3 * v1)
         dof = 2 * total ** 2 / (2 * v1 ** 2 / d1 + var_spread)
         lo, hi = variance_interval(total, dof, level)

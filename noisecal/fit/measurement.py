@@ -16,6 +16,7 @@ Tracking and Navigation*, 2001 (chi-square validation gate).
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from scipy import stats
@@ -115,6 +116,34 @@ class MeasurementModel:
     distances: np.ndarray
     channels: list
     notes: tuple = field(default_factory=tuple)
+
+
+@lru_cache(maxsize=32)
+def gate_efficiency(p: int, probability: float, n: int = 2000, reps: int = 300) -> float:
+    """Variance of the gated, cut-corrected variance estimate over 2σ⁴/n, at the Gaussian.
+
+    The samples kept by the gate depend on the estimate itself, which adds a
+    few per cent of variance over a sample variance (measured: 1.07 for two
+    channels at p = 0.997). Computed once per (p, probability) by simulation
+    with a fixed seed; the chi-square degrees of freedom are divided by it.
+    """
+    rng = np.random.default_rng(12345)
+    gamma = stats.chi2.ppf(probability, p)
+    factor = truncation_factor(probability, p)
+    diag = np.empty((reps, p))
+    for r in range(reps):
+        z = rng.standard_normal((n, p))
+        inl = np.ones(n, bool)
+        for _ in range(REGATE_PASSES):
+            loc = z[inl].mean(axis=0)
+            cov = np.atleast_2d(np.cov(z[inl], rowvar=False)) / factor
+            d = z - loc
+            new = np.einsum("ij,ij->i", d, np.linalg.solve(cov, d.T).T) <= gamma
+            if np.array_equal(new, inl):
+                break
+            inl = new
+        diag[r] = np.diag(cov)
+    return float(max(1.0, np.mean(np.var(diag, axis=0)) * n / 2))
 
 
 def variance_interval(s2: float, dof: float, level: float = 0.95) -> tuple[float, float]:
@@ -258,7 +287,10 @@ def fit_measurement(r: np.ndarray, names: tuple, units: tuple, period: float,
     ri = r[inl]
     factor = truncation_factor(gate_probability, c)
     R = np.atleast_2d(np.cov(ri, rowvar=False)) / factor
-    n_effs = np.array([effective_size(ri[:, j]) for j in range(c)])
+    # Effective sample sizes of the correlated inliers, less what the gate's own
+    # randomness costs (see gate_efficiency).
+    n_effs = np.array([effective_size(ri[:, j]) for j in range(c)]) / \
+        gate_efficiency(c, round(float(gate_probability), 6))
     R_low, R_high = np.empty_like(R), np.empty_like(R)
     z = stats.norm.ppf(0.5 + level / 2)
     for i in range(c):

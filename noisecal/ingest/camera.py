@@ -32,10 +32,10 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-import yaml
 
 from ..errors import InputError
 from ..units import split_header, to_si
+from .yaml_file import read_yaml
 
 PIXEL_UNITS = ("px", "pixel", "pixels")
 
@@ -102,13 +102,7 @@ def check_rotation(R: np.ndarray, where: str) -> None:
 def read_camera(path: str | Path) -> Camera:
     """Read and check a camera file."""
     path = Path(path)
-    try:
-        doc = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(f"{path}: no such camera file; check the path") from None
-    except (OSError, UnicodeDecodeError, yaml.YAMLError):
-        raise InputError(f"{path}: cannot read the camera file as YAML; fix the syntax") \
-            from None
+    doc = read_yaml(path, "camera file")
     cam = doc.get("camera") if isinstance(doc, dict) else None
     where = f"{path}, camera"
     if not isinstance(cam, dict):

@@ -24,9 +24,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import yaml
 
 from ..errors import InputError
+from .yaml_file import read_yaml
 
 DERIVED_PREFIXES = ("path.", "beacon.")
 DERIVED_NAMES = ("speed", "turn_rate")
@@ -89,16 +89,7 @@ def read_map(path: str | Path, covariate: str | None = None) -> MeasurementMap:
         Unreadable YAML, unknown keys, a derived quantity without what it needs.
     """
     path = Path(path)
-    try:
-        data = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(f"{path}: no such map file; check the path") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"{path}: cannot read the map ({exc.__class__.__name__})") from None
-    except yaml.YAMLError as exc:
-        mark = getattr(exc, "problem_mark", None)
-        where = f", line {mark.line + 1}" if mark else ""
-        raise InputError(f"{path}{where}: not valid YAML; fix the syntax") from None
+    data = read_yaml(path, "map file")
     if not isinstance(data, dict) or "measures" not in data:
         raise InputError(f"{path}: a map needs a 'measures:' mapping of sensor channel to "
                          "truth quantity, e.g. 'measures: {offset: path.offset}'")
@@ -202,13 +193,7 @@ def read_odometry_config(path: str | Path) -> OdometryConfig:
     """
     path = Path(path)
     where = str(path)
-    try:
-        data = yaml.safe_load(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(f"{path}: no such odometry config; check the path") from None
-    except (OSError, UnicodeDecodeError, yaml.YAMLError):
-        raise InputError(f"{path}: cannot read the odometry config as YAML; fix the syntax") \
-            from None
+    data = read_yaml(path, "odometry config")
     if not isinstance(data, dict) or ("encoders" in data) == ("increments" in data):
         raise InputError(f"{path}: an odometry config has exactly one of 'encoders:' "
                          "(left, right, ticks_per_rev, wheel_radius_m, track_width_m) or "

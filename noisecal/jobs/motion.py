@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import datetime as _dt
 from dataclasses import dataclass, replace
-from pathlib import Path
 
 import numpy as np
 
@@ -19,7 +18,7 @@ from ..analysis.align import Alignment, estimate_offset, residuals
 from ..analysis.derived import truth_series
 from ..errors import AnalysisError, InputError, UnitError
 from ..export import yaml_block
-from ..export.atomic import check_target, write_text
+from ..export.atomic import output_paths, write_text
 from ..export.motion_plot import motion_figure
 from ..fit.measurement import GATE_PROBABILITY, MeasurementModel, fit_measurement
 from ..ingest import read_recording
@@ -270,15 +269,8 @@ def run_motion(sensor_path: str, truth_path: str, out: str, map_path: str | None
     gate_probability, max_offset, seed, command
         See :func:`analyse`.
     """
-    out_path = Path(out)
-    plot_path = Path(plot) if plot else out_path.with_suffix(".png")
-    if out_path.suffix.lower() not in (".yaml", ".yml"):
-        raise InputError(f"-o {out}: the output is a YAML block; give a .yaml path")
-    if plot_path.resolve() == out_path.resolve():
-        raise InputError(f"--plot {plot_path}: the same path as -o; give the plot its own path")
-    inputs = [Path(sensor_path), Path(truth_path)] + ([Path(map_path)] if map_path else [])
-    for target in (out_path, plot_path):
-        check_target(target, inputs, overwrite)
+    inputs = [sensor_path, truth_path] + ([map_path] if map_path else [])
+    out_path, plot_path = output_paths(out, plot, inputs, overwrite)
     bars = StageBars(quiet)
     try:
         sensor = read_recording(sensor_path, use_cache=use_cache, progress=bars)

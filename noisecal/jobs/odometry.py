@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import datetime as _dt
 from dataclasses import dataclass, replace
-from pathlib import Path
 
 import numpy as np
 
@@ -19,7 +18,7 @@ from ..analysis.align import Alignment, estimate_offset
 from ..analysis.derived import rate_series, truth_series
 from ..errors import AnalysisError, InputError
 from ..export import yaml_block
-from ..export.atomic import check_target, write_text
+from ..export.atomic import output_paths, write_text
 from ..export.odometry_plot import odometry_figure
 from ..fit.odometry import OdometryModel, decompose, encoder_pose, fit_odometry, \
     quantization, quantization_floor, step_noise
@@ -289,15 +288,8 @@ def run_odometry(odometry_path: str, truth_path: str, config_path: str, out: str
                  quiet: bool = False, command: str = "", use_cache: bool = True
                  ) -> OdometryResult:
     """Read, analyse and write the odometry YAML block and plot."""
-    out_path = Path(out)
-    plot_path = Path(plot) if plot else out_path.with_suffix(".png")
-    if out_path.suffix.lower() not in (".yaml", ".yml"):
-        raise InputError(f"-o {out}: the output is a YAML block; give a .yaml path")
-    if plot_path.resolve() == out_path.resolve():
-        raise InputError(f"--plot {plot_path}: the same path as -o; give the plot its own path")
-    inputs = [Path(odometry_path), Path(truth_path), Path(config_path)]
-    for target in (out_path, plot_path):
-        check_target(target, inputs, overwrite)
+    out_path, plot_path = output_paths(out, plot, [odometry_path, truth_path, config_path],
+                                       overwrite)
     cfg = read_odometry_config(config_path)
     bars = StageBars(quiet)
     try:

@@ -19,7 +19,7 @@ from ..analysis.allan import allan_curve
 from ..analysis.psd import white_level
 from ..errors import AnalysisError, InputError
 from ..export import yaml_block
-from ..export.atomic import check_target, write_text
+from ..export.atomic import output_paths, write_text
 from ..export.plot import allan_figure
 from ..fit.discrete import filter_block
 from ..fit.gauss_markov import fit_gauss_markov
@@ -237,14 +237,7 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
     -------
     StaticResult
     """
-    out_path = Path(out)
-    plot_path = Path(plot) if plot else out_path.with_suffix(".png")
-    if out_path.suffix.lower() not in (".yaml", ".yml"):
-        raise InputError(f"-o {out}: the output is a YAML block; give a .yaml path")
-    if plot_path.resolve() == out_path.resolve():
-        raise InputError(f"--plot {plot_path}: the same path as -o; give the plot its own path")
-    for target in (out_path, plot_path):
-        check_target(target, [Path(path)], overwrite)
+    out_path, plot_path = output_paths(out, plot, [path], overwrite)
     bars = StageBars(quiet)
     try:
         rec = read_recording(path, repair=repair, use_cache=use_cache, progress=bars)

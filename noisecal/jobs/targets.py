@@ -9,7 +9,6 @@ from __future__ import annotations
 
 import datetime as _dt
 from dataclasses import dataclass, replace
-from pathlib import Path
 
 import numpy as np
 
@@ -17,7 +16,7 @@ from .. import __version__
 from ..analysis import camera_geometry as geo
 from ..errors import InputError
 from ..export import yaml_block
-from ..export.atomic import check_target, write_text
+from ..export.atomic import output_paths, write_text
 from ..export.camera_plot import camera_figure
 from ..fit.camera import CameraModel, fit_camera
 from ..fit.measurement import GATE_PROBABILITY
@@ -273,16 +272,8 @@ def run_targets(detections_path: str, survey_path: str, camera_path: str, out: s
                 seed: int = 1, command: str = "", poses_path: str | None = None
                 ) -> TargetsResult:
     """Read, analyse and write the camera YAML block and plot."""
-    out_path = Path(out)
-    plot_path = Path(plot) if plot else out_path.with_suffix(".png")
-    if out_path.suffix.lower() not in (".yaml", ".yml"):
-        raise InputError(f"-o {out}: the output is a YAML block; give a .yaml path")
-    if plot_path.resolve() == out_path.resolve():
-        raise InputError(f"--plot {plot_path}: the same path as -o; give the plot its own path")
-    inputs = [Path(detections_path), Path(survey_path), Path(camera_path)]
-    inputs += [Path(poses_path)] if poses_path else []
-    for target in (out_path, plot_path):
-        check_target(target, inputs, overwrite)
+    inputs = [detections_path, survey_path, camera_path] + ([poses_path] if poses_path else [])
+    out_path, plot_path = output_paths(out, plot, inputs, overwrite)
     camera = read_camera(camera_path)
     survey = read_survey(survey_path)
     det = read_detections(detections_path, survey, camera)

@@ -8,7 +8,6 @@ in the 93–97 % band.
 
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 from noisecal.analysis.align import estimate_offset, residuals
