@@ -4,8 +4,9 @@ Sign convention: the offset δ is how late the sensor's timestamps are. A
 sample stamped t measured the truth at t − δ; δ > 0 is a sensor latency.
 
 Method: a coarse δ from the cross-correlation of the first differences (the
-motion) of every mapped channel, then δ refined by minimising a Huber loss of
-the residuals (outliers do not pull it), and a 95 % interval from the
+motion) of every mapped channel, checked against a scan of a Huber loss of the
+residuals over the whole search range (outliers do not pull it), then refined
+by minimising that loss and finished by least squares over its inliers, and a 95 % interval from the
 sandwich (Gauss–Newton curvature, and the long-run variance of the score
 with a Bartlett kernel so coloured residuals widen it).
 
@@ -200,21 +201,38 @@ def estimate_offset(sensor: np.ndarray, truth: list, t: np.ndarray,
             raise AnalysisError("a truth quantity is constant: there is no motion to align "
                                 "on; drive while recording")
     coarse = _coarse(sensor[inside], truth, t[inside], max_offset)
-    used0 = _usable(truth, t, coarse) & _usable(truth, t, coarse - 0.1) & \
-        _usable(truth, t, coarse + 0.1)
+    # Samples usable at every offset searched, so each offset sees the same data.
+    used0 = _usable(truth, t, -max_offset) & _usable(truth, t, max_offset)
+    if np.count_nonzero(used0) < 50:
+        raise AnalysisError(f"fewer than 50 sensor samples stay inside the truth at every "
+                            f"offset within ±{max_offset:g} s; lower --max-offset or record "
+                            "a longer overlap")
     s, tt = sensor[used0], t[used0]
-    r0 = residuals(s, truth, tt, coarse)
-    scale = MAD_TO_SIGMA * np.median(np.abs(r0 - np.median(r0, axis=0)), axis=0)
-    scale[scale == 0] = 1.0
     step = float(np.median(np.diff(t)))
 
-    def loss(delta):
-        z = residuals(s, truth, tt, delta) / scale
+    def robust_scale(delta):
+        r0 = residuals(s, truth, tt, delta)
+        sc = MAD_TO_SIGMA * np.median(np.abs(r0 - np.median(r0, axis=0)), axis=0)
+        sc[sc == 0] = 1.0
+        return sc
+
+    def huber(delta, sc):
+        z = residuals(s, truth, tt, delta) / sc
         a = np.abs(z)
         return float(np.sum(np.where(a <= HUBER_K, 0.5 * z * z, HUBER_K * a - 0.5 * HUBER_K ** 2)))
 
-    span = max(2 * step, 0.05)
-    res = optimize.minimize_scalar(loss, bounds=(coarse - span, coarse + span),
+    # The cross-correlation of motion is quick but can be fooled by noise when the
+    # motion is slow; a scan of the loss itself over the whole search range, one
+    # sensor period apart, cannot. Start from the better of the two.
+    scale = robust_scale(coarse)
+    grid = np.append(np.arange(-max_offset, max_offset + 0.5 * step, step), coarse)
+    start = float(grid[int(np.argmin([huber(d, scale) for d in grid]))])
+    scale = robust_scale(start)
+
+    def loss(delta):
+        return huber(delta, scale)
+
+    res = optimize.minimize_scalar(loss, bounds=(start - step, start + step),
                                    method="bounded", options={"xatol": 1e-6 * max(step, 1e-3)})
     delta = float(res.x)
     inl = np.all(np.abs(residuals(s, truth, tt, delta) / scale) <= HUBER_K * 2, axis=1)

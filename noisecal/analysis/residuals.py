@@ -42,6 +42,8 @@ def acf(r: np.ndarray, nlags: int) -> np.ndarray:
     size = 1 << int(np.ceil(np.log2(2 * n)))
     f = np.fft.rfft(x, size)
     full = np.fft.irfft(f * np.conj(f), size)[: nlags + 1]
+    if not full[0] > 0:  # a constant series: no correlation to speak of
+        return np.concatenate([[1.0], np.zeros(nlags)])
     return full / full[0]
 
 

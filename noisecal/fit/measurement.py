@@ -23,6 +23,7 @@ from scipy import stats
 
 from ..analysis.residuals import (Shape, acf, effective_size, ljung_box, min_cov_det,
                                   shape, truncation_factor)
+from ..errors import AnalysisError
 from ..types import Estimate
 from . import variance_model
 
@@ -243,6 +244,15 @@ def fit_measurement(r: np.ndarray, names: tuple, units: tuple, period: float,
     """
     r = np.asarray(r, dtype=float)
     n, c = r.shape
+    if n < 10 * c + 10:
+        raise AnalysisError(f"{n} residuals for {c} channel(s): too few for a covariance "
+                            "with an interval; record longer")
+    for j, name in enumerate(names):
+        spread = np.median(np.abs(r[:, j] - np.median(r[:, j])))
+        if not spread > 0:
+            raise AnalysisError(f"{name}: the residuals are constant (more than half the "
+                                "samples equal): the sensor repeats the truth or is "
+                                "quantized coarser than its noise; nothing to fit")
     gamma = float(stats.chi2.ppf(gate_probability, c))
     robust = min_cov_det(r, seed=seed)
     inl = robust.distances <= gamma
