@@ -214,8 +214,11 @@ def fit_camera(camera, survey, detections, gate_probability: float = GATE_PROBAB
         # carry most of the survey's share, so a chi-square on k − 1 dof would
         # understate it, and the squared offsets of few targets are too noisy to
         # estimate it from.
-        per_target = S[:, j, j] + max(R_sys[j, j], 0.0) + v1 / counts
-        var_spread = 2 * float(np.sum(per_target ** 2)) / (k - 1) ** 2 if k > 2 else np.inf
+        w = S[:, j, j] + max(R_sys[j, j], 0.0) + v1 / counts
+        # Var of Σ(d_k − d̄)² for independent d_k of variances w_k: 2 tr((C W)²), C
+        # the centring matrix.
+        var_spread = (2 * float(np.sum(w ** 2) * (1 - 2 / k) + np.sum(w) ** 2 / k ** 2)
+                      / (k - 1) ** 2 if k > 2 else np.inf)
         total = max(v1 + R_sys[j, j], 1e-3 * v1)
         dof = 2 * total ** 2 / (2 * v1 ** 2 / d1 + var_spread)
         lo, hi = variance_interval(total, dof, level)

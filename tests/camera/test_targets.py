@@ -39,9 +39,12 @@ def test_coverage_fast_set():
 
 @pytest.mark.slow
 def test_coverage_slow_set():
-    """300 seeded sessions: each 95 % interval covers 93–97 %."""
+    """300 seeded sessions: the σ intervals cover 93–97 %; the outlier rate's
+    Clopper–Pearson interval is conservative by construction (at least 95 % for
+    any true rate), so only its lower edge is held to 93 %."""
     cov = coverage(300, 50_000)
-    assert all(0.93 <= v <= 0.97 for v in cov.values()), cov
+    assert 0.93 <= cov["sigma_u"] <= 0.97 and 0.93 <= cov["sigma_v"] <= 0.97, cov
+    assert cov["outlier_fraction"] >= 0.93, cov
 
 
 def test_demo_yard(tmp_path, run_cli):

