@@ -19,6 +19,14 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_ERROR, f"{self.prog}: error: {message}; see '{self.prog} --help'\n")
 
 
+def _history_options(p) -> None:
+    p.add_argument("--unit", metavar="SERIAL", help="store this run in the history database "
+                   "under the unit's serial number")
+    p.add_argument("--sensor", help="sensor name stored with --unit (default: the input file)")
+    p.add_argument("--db", default="noisecal.db", help="history database (default noisecal.db "
+                   "in the working folder)")
+
+
 def _parser() -> argparse.ArgumentParser:
     p = _Parser(prog="noisecal", description=(
         "Noise models with 95 % intervals, and the Q and R a Kalman filter needs, "
@@ -40,6 +48,7 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--quiet", action="store_true", help="no progress bar")
     s.add_argument("--no-cache", action="store_true",
                    help="do not read or write the binary cache of validated recordings")
+    _history_options(s)
 
     m = sub.add_parser("motion", help="measurement noise of a sensor against ground truth")
     m.add_argument("recording", help="sensor recording (CSV, Parquet or .npz), time first")
@@ -60,6 +69,7 @@ def _parser() -> argparse.ArgumentParser:
     m.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     m.add_argument("--quiet", action="store_true", help="no progress bar")
     m.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
+    _history_options(m)
 
     c = sub.add_parser("targets", help="camera measurement noise from surveyed targets")
     c.add_argument("detections", help="detections CSV: time [s], id, u [px], v [px][, score]")
@@ -76,6 +86,32 @@ def _parser() -> argparse.ArgumentParser:
                    help="probability of the chi-square gate (default 0.997)")
     c.add_argument("--seed", type=int, default=1, help="seed (robust fit, Monte Carlo)")
     c.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    _history_options(c)
+
+    r = sub.add_parser("recheck", help="compare a new recording with a baseline block; exit "
+                       "0 consistent, 1 changed, 3 inconclusive, 2 error")
+    r.add_argument("baseline", help="a YAML block written by static, motion or targets")
+    r.add_argument("recording", help="the new recording (sensor, odometry or detections)")
+    r.add_argument("-o", "--output", help="YAML block to write (and a PNG beside it)")
+    r.add_argument("--truth", help="the new drive's truth (motion and odometry baselines)")
+    r.add_argument("--limits", help="engineering limits YAML: limits: {channel: {parameter: "
+                   "{max: x}}} (SI)")
+    r.add_argument("--tolerance", type=float, default=1.25,
+                   help="change (ratio) a re-check must be able to see to say consistent "
+                   "(default 1.25)")
+    r.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    r.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
+    _history_options(r)
+
+    h = sub.add_parser("history", help="a unit's stored runs: table, plot, CSV")
+    h.add_argument("unit", metavar="SERIAL")
+    h.add_argument("--db", default="noisecal.db", help="history database (default noisecal.db)")
+    h.add_argument("--param", help="only this parameter (name, or channel.name)")
+    h.add_argument("--since", help="only runs on or after this date (ISO, e.g. 2026-06-01)")
+    h.add_argument("--export", choices=["csv"], help="write one row per run and parameter")
+    h.add_argument("-o", "--output", help="path of the export (with --export)")
+    h.add_argument("--plot", help="PNG: each parameter with its interval over time")
+    h.add_argument("--overwrite", action="store_true", help="replace existing outputs")
 
     i = sub.add_parser("inspect", help="describe a recording and the problems found")
     i.add_argument("recording")
@@ -85,6 +121,20 @@ def _parser() -> argparse.ArgumentParser:
     d = sub.add_parser("demo", help="run the committed demo recording into reports/demo")
     d.add_argument("--quiet", action="store_true")
     return p
+
+
+def _store(args, job: str, sections: dict, sha256: str, verdict: str | None = None) -> None:
+    """Record the run in the history database when --unit was given."""
+    if not getattr(args, "unit", None):
+        return
+    from pathlib import Path
+
+    from .jobs.history import store
+
+    source = getattr(args, "recording", None) or getattr(args, "detections", "")
+    run = store(args.db, args.unit, args.sensor or Path(source).name, job, sections, sha256,
+                verdict)
+    print(f"stored as run {run} of unit {args.unit} in {args.db}")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -102,6 +152,7 @@ def main(argv: list[str] | None = None) -> int:
                                 args.quiet, command, use_cache=not args.no_cache)
             print(summary(result))
             print(f"wrote {args.output}")
+            _store(args, "static", result.sections, result.recording.source.sha256)
         elif args.command == "motion" and args.odometry:
             from .jobs.odometry import run_odometry, summary as odometry_summary
 
@@ -113,6 +164,7 @@ def main(argv: list[str] | None = None) -> int:
                                   command, use_cache=not args.no_cache)
             print(odometry_summary(result))
             print(f"wrote {args.output}")
+            _store(args, "motion --odometry", result.sections, result.odometry.source.sha256)
         elif args.command == "motion":
             from .jobs.motion import run_motion, summary as motion_summary
 
@@ -121,6 +173,7 @@ def main(argv: list[str] | None = None) -> int:
                                 args.seed, args.quiet, command, use_cache=not args.no_cache)
             print(motion_summary(result))
             print(f"wrote {args.output}")
+            _store(args, "motion", result.sections, result.sensor.source.sha256)
         elif args.command == "targets":
             from .jobs.targets import run_targets, summary as targets_summary
 
@@ -129,6 +182,32 @@ def main(argv: list[str] | None = None) -> int:
                                  command, args.poses)
             print(targets_summary(result))
             print(f"wrote {args.output}")
+            _store(args, "targets", result.sections, result.detections.sha256)
+        elif args.command == "recheck":
+            from .jobs.recheck import run_recheck, summary as recheck_summary
+
+            result = run_recheck(args.baseline, args.recording, args.output, args.truth,
+                                 args.limits, args.tolerance, args.overwrite,
+                                 use_cache=not args.no_cache, command=command)
+            print(recheck_summary(result))
+            if args.output:
+                print(f"wrote {args.output}")
+            sha = (result.new_sections.get("provenance", {}).get("input") or {}).get("sha256", "")
+            _store(args, "recheck", result.new_sections, sha, result.verdict)
+            return result.exit_status
+        elif args.command == "history":
+            from .jobs import history as hist
+
+            if args.export and not args.output:
+                raise InputError("--export csv needs -o OUT.csv")
+            print(hist.table(args.db, args.unit, args.param, args.since))
+            if args.export:
+                rows = hist.export_csv(args.db, args.unit, args.output, args.param, args.since,
+                                       args.overwrite)
+                print(f"wrote {rows} row(s) to {args.output}")
+            if args.plot:
+                hist.plot(args.db, args.unit, args.plot, args.param, args.since, args.overwrite)
+                print(f"wrote {args.plot}")
         elif args.command == "inspect":
             from .jobs.inspect import run_inspect
 

@@ -85,3 +85,33 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=110, format="png")
     plt.close(fig)
+
+
+def recheck_figure(base: dict, new: dict, path: Path) -> None:
+    """Baseline and new Allan points with their 95 % intervals, one panel per channel,
+    written atomically as PNG."""
+    channels = [c for c in base["channels"] if c in new["channels"]]
+    cols = min(3, len(channels))
+    rows = int(np.ceil(len(channels) / cols))
+    fig, axes = plt.subplots(rows, cols, figsize=(5.8 * cols, 4.6 * rows), squeeze=False)
+    for ax, ch in zip(axes.flat, channels):
+        for doc, label, color in ((base, "baseline", "0.35"), (new, "new", "#d62728")):
+            pts = doc["channels"][ch]["allan_points"]
+            tau = np.array(pts["tau_s"], dtype=float)
+            dev = np.array(pts["deviation"], dtype=float)
+            lo = np.array(pts["ci95_low"], dtype=float)
+            hi = np.array(pts["ci95_high"], dtype=float)
+            ax.fill_between(tau, lo, hi, color=color, alpha=0.18)
+            ax.loglog(tau, dev, "o-", ms=3, color=color, lw=1.0, label=f"{label} (95 %)")
+        ax.set_title(ch)
+        ax.set_xlabel("averaging time τ [s]")
+        ax.set_ylabel(f"Allan deviation [{base['channels'][ch]['unit']}]")
+        ax.grid(True, which="both", alpha=0.3)
+        ax.legend(fontsize=7, frameon=False)
+    for ax in list(axes.flat)[len(channels):]:
+        ax.axis("off")
+    fig.suptitle("re-check: overlapping Allan deviation, baseline against new", fontsize=10)
+    fig.tight_layout()
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, dpi=100, format="png")
+    plt.close(fig)

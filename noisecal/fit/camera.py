@@ -214,7 +214,8 @@ def fit_camera(camera, survey, detections, gate_probability: float = GATE_PROBAB
         # carry most of the survey's share, so a chi-square on k − 1 dof would
         # understate it, and the squared offsets of few targets are too noisy to
         # estimate it from.
-        w = S[:, j, j] + max(R_sys[j, j], 0.0) + v1 / counts
+        # R_sys as estimated (it may be negative): clipping it at 0 would bias w up.
+        w = np.maximum(S[:, j, j] + R_sys[j, j] + v1 / counts, v1 / counts)
         # Var of Σ(d_k − d̄)² for independent d_k of variances w_k: 2 tr((C W)²), C
         # the centring matrix.
         var_spread = (2 * float(np.sum(w ** 2) * (1 - 2 / k) + np.sum(w) ** 2 / k ** 2)

@@ -1,0 +1,212 @@
+"""Baseline against new: a verdict per parameter and overall, for a re-check.
+
+Each parameter of a job's YAML block is compared with a test where one
+exists — an F-test of two variances with their degrees of freedom (white
+noise at τ0 and each term at the τ that constrains it, through the Allan
+points' EDF; inlier variances of the motion job through their effective
+sample sizes) — and otherwise a z-test on the log scale from the two 95 %
+intervals. The p-values are corrected for multiple comparisons by Holm's
+step-down method. A parameter whose difference is not significant is
+``consistent`` only if the data could have seen a change of ``tolerance``
+(80 % power); otherwise it is ``inconclusive``, with how many times longer a
+recording would decide it.
+
+References
+----------
+S. Holm, "A simple sequentially rejective multiple test procedure",
+Scandinavian Journal of Statistics 6(2), 1979.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy import stats
+
+ALPHA = 0.05
+POWER_Z = stats.norm.ppf(0.8)
+DEFAULT_TOLERANCE = 1.25
+"""Ratio (in standard deviation) a re-check must be able to see to call a parameter consistent."""
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """One parameter, baseline against new.
+
+    Attributes
+    ----------
+    channel, name, unit : str
+    baseline, new : float or None
+        Values (None where only a bound).
+    baseline_bound, new_bound : float or None
+        Upper bounds where the term was not resolved.
+    ratio : float or None
+        new / baseline.
+    test : str
+    p_value, p_adjusted : float or None
+    se_log : float or None
+        Standard error of log(ratio).
+    verdict : str
+        ``consistent``, ``better``, ``worse`` or ``inconclusive``.
+    longer : float or None
+        For ``inconclusive``: how many times longer a recording would decide.
+    within_spec : bool or None
+    """
+
+    channel: str
+    name: str
+    unit: str
+    baseline: float | None
+    new: float | None
+    baseline_bound: float | None
+    new_bound: float | None
+    ratio: float | None
+    test: str
+    p_value: float | None
+    p_adjusted: float | None
+    se_log: float | None
+    verdict: str
+    longer: float | None = None
+    within_spec: bool | None = None
+
+
+def f_test(var_a: float, dof_a: float, var_b: float, dof_b: float) -> float:
+    """Two-sided p-value of H0: equal variances, F = var_b / var_a on (dof_b, dof_a)."""
+    f = var_b / var_a
+    tail = stats.f.sf(f, dof_b, dof_a) if f > 1 else stats.f.cdf(f, dof_b, dof_a)
+    return float(min(1.0, 2 * tail))
+
+
+def holm(p: list) -> list:
+    """Holm-adjusted p-values (None entries left as None)."""
+    idx = [i for i, v in enumerate(p) if v is not None]
+    order = sorted(idx, key=lambda i: p[i])
+    out = list(p)
+    running = 0.0
+    m = len(order)
+    for rank, i in enumerate(order):
+        running = max(running, min(1.0, (m - rank) * p[i]))
+        out[i] = running
+    return out
+
+
+def _se_from_ci(e: dict) -> float | None:
+    lo, hi = e["ci95"]
+    if e["value"] is None or lo is None or hi is None or lo <= 0 or e["value"] <= 0:
+        return None
+    return (np.log(hi) - np.log(lo)) / (2 * 1.959964)
+
+
+def compare_estimates(channel: str, name: str, base: dict, new: dict,
+                      f_dof: tuple | None = None, higher_is_worse: bool = True,
+                      linear: bool = False) -> dict:
+    """Raw comparison of two ``{value, ci95, unit}`` / ``{upper_bound, unit}`` dicts.
+
+    Parameters
+    ----------
+    f_dof : (var_base, dof_base, var_new, dof_new), optional
+        Variances behind the parameter and their degrees of freedom: an F-test.
+    higher_is_worse : bool
+        Whether a larger value (a larger magnitude, with ``linear``) is worse.
+    linear : bool
+        A quantity that may be zero or negative (bias, offset, a fraction): a
+        z-test of the difference, the standard errors from the intervals.
+    """
+    unit = base.get("unit", new.get("unit", ""))
+    bv, nv = base.get("value"), new.get("value")
+    bb, nb = base.get("upper_bound"), new.get("upper_bound")
+    row = {"channel": channel, "name": name, "unit": unit, "baseline": bv, "new": nv,
+           "baseline_bound": bb, "new_bound": nb, "ratio": None, "test": "", "p_value": None,
+           "se_log": None, "higher_is_worse": higher_is_worse}
+    if bv is None or nv is None:
+        row["test"] = "not resolved in both: bounds compared"
+        return row
+    row["ratio"] = nv / bv if bv else None
+    if linear:
+        half = [(e["ci95"][1] - e["ci95"][0]) / (2 * 1.959964) for e in (base, new)]
+        se = float(np.hypot(*half))
+        row["test"] = "z-test of the difference from the two 95 % intervals"
+        row["p_value"] = float(2 * stats.norm.sf(abs(nv - bv) / se)) if se > 0 else 1.0
+        row["se_log"] = None
+        row["se_linear"] = se
+        row["scale"] = max(abs(bv), abs(nv), se)
+        # For a signed quantity "larger" means larger in magnitude.
+        row["ratio"] = abs(nv) / abs(bv) if bv else None
+        return row
+    if f_dof is not None:
+        vb, db, vn, dn = f_dof
+        row["test"] = f"F-test of variances ({dn:.4g}, {db:.4g} dof)"
+        row["p_value"] = f_test(vb, db, vn, dn)
+        row["se_log"] = float(0.5 * np.sqrt(2 / db + 2 / dn))  # of log σ
+        return row
+    sb, sn = _se_from_ci(base), _se_from_ci(new)
+    if sb is None or sn is None or not bv > 0 or not nv > 0:
+        lo_b, hi_b = base["ci95"]
+        lo_n, hi_n = new["ci95"]
+        row["test"] = "interval overlap"
+        overlap = not (lo_n > hi_b or hi_n < lo_b)
+        row["p_value"] = 1.0 if overlap else 0.0
+        return row
+    se = float(np.hypot(sb, sn))
+    z = (np.log(nv) - np.log(bv)) / se
+    row["test"] = "z-test of log ratio from the two 95 % intervals"
+    row["p_value"] = float(2 * stats.norm.sf(abs(z)))
+    row["se_log"] = se
+    return row
+
+
+def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | None = None):
+    """Holm-correct the rows' p-values and give each its verdict.
+
+    Returns
+    -------
+    list of Comparison, overall verdict (``consistent``, ``changed`` or
+    ``inconclusive``), overall within-spec (None without limits)
+    """
+    adjusted = holm([r["p_value"] for r in rows])
+    out = []
+    for r, p_adj in zip(rows, adjusted):
+        longer = None
+        if r["p_value"] is None:
+            # Bounds only: a newly resolved term above the old bound is worse.
+            if r["new"] is not None and r["baseline_bound"] is not None and \
+                    r["new"] > r["baseline_bound"]:
+                verdict = "worse"
+            else:
+                verdict = "inconclusive"
+        elif p_adj < ALPHA:
+            up = r["ratio"] is not None and r["ratio"] > 1
+            verdict = "worse" if up == r["higher_is_worse"] else "better"
+        else:
+            se = r["se_log"]
+            if se is None and r.get("se_linear") is not None:
+                verdict = "consistent"  # a signed quantity: its interval says the rest
+            elif se is None:
+                verdict = "consistent"
+            else:
+                # Detectable change at 80 % power after Holm's first step.
+                z_a = stats.norm.ppf(1 - ALPHA / (2 * max(1, len(rows))))
+                need = (z_a + POWER_Z) * se
+                if need <= np.log(tolerance):
+                    verdict = "consistent"
+                else:
+                    verdict = "inconclusive"
+                    longer = float((need / np.log(tolerance)) ** 2)
+        spec = None
+        lim = (limits or {}).get(r["channel"], {}).get(r["name"])
+        if lim is not None:
+            value = r["new"] if r["new"] is not None else r["new_bound"]
+            spec = bool(value is not None and ("max" not in lim or value <= lim["max"]) and
+                        ("min" not in lim or value >= lim["min"]))
+        out.append(Comparison(r["channel"], r["name"], r["unit"], r["baseline"], r["new"],
+                              r["baseline_bound"], r["new_bound"], r["ratio"], r["test"],
+                              r["p_value"], p_adj, r["se_log"], verdict, longer, spec))
+    if any(c.verdict in ("better", "worse") for c in out):
+        overall = "changed"
+    elif any(c.verdict == "inconclusive" and c.p_value is not None for c in out):
+        overall = "inconclusive"
+    else:
+        overall = "consistent"
+    specs = [c.within_spec for c in out if c.within_spec is not None]
+    return out, overall, (all(specs) if specs else None)
