@@ -48,10 +48,15 @@ class Comparison:
     se_log : float or None
         Standard error of log(ratio).
     verdict : str
-        ``consistent``, ``better``, ``worse`` or ``inconclusive``.
+        ``consistent``, ``better``, ``worse`` or ``inconclusive`` (a resolved
+        parameter the new data cannot decide); ``not resolved`` for a term only
+        bounded in both (it does not enter the overall verdict).
     longer : float or None
-        For ``inconclusive``: how many times longer a recording would decide.
+        For ``inconclusive``: how many times more data would decide.
     within_spec : bool or None
+    more_of : str
+        What "more data" means for this parameter (``recording`` length, or
+        ``targets`` where the spread between targets limits it).
     """
 
     channel: str
@@ -69,6 +74,7 @@ class Comparison:
     verdict: str
     longer: float | None = None
     within_spec: bool | None = None
+    more_of: str = "recording"
 
 
 def f_test(var_a: float, dof_a: float, var_b: float, dof_b: float) -> float:
@@ -169,20 +175,22 @@ def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | No
     for r, p_adj in zip(rows, adjusted):
         longer = None
         if r["p_value"] is None:
-            # Bounds only: a newly resolved term above the old bound is worse.
             if r["new"] is not None and r["baseline_bound"] is not None and \
                     r["new"] > r["baseline_bound"]:
-                verdict = "worse"
-            else:
+                verdict = "worse"  # a term the baseline bounded is now resolved above it
+            elif r["baseline"] is not None and r["new"] is None:
+                # Resolved before, only bounded now: the new recording cannot tell; a
+                # recording as long as the baseline's resolved it.
                 verdict = "inconclusive"
+                longer = r.get("length_ratio")
+            else:
+                verdict = "not resolved"  # in neither recording: nothing to compare
         elif p_adj < ALPHA:
             up = r["ratio"] is not None and r["ratio"] > 1
             verdict = "worse" if up == r["higher_is_worse"] else "better"
         else:
             se = r["se_log"]
-            if se is None and r.get("se_linear") is not None:
-                verdict = "consistent"  # a signed quantity: its interval says the rest
-            elif se is None:
+            if se is None:  # a signed quantity or an overlap test: nothing to scale
                 verdict = "consistent"
             else:
                 # Detectable change at 80 % power after Holm's first step.
@@ -201,10 +209,11 @@ def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | No
                         ("min" not in lim or value >= lim["min"]))
         out.append(Comparison(r["channel"], r["name"], r["unit"], r["baseline"], r["new"],
                               r["baseline_bound"], r["new_bound"], r["ratio"], r["test"],
-                              r["p_value"], p_adj, r["se_log"], verdict, longer, spec))
+                              r["p_value"], p_adj, r["se_log"], verdict, longer, spec,
+                              r.get("more_of", "recording")))
     if any(c.verdict in ("better", "worse") for c in out):
         overall = "changed"
-    elif any(c.verdict == "inconclusive" and c.p_value is not None for c in out):
+    elif any(c.verdict == "inconclusive" for c in out):
         overall = "inconclusive"
     else:
         overall = "consistent"

@@ -74,6 +74,7 @@ def static_rows(base: dict, new: dict) -> list:
     of the τ range that constrains it, through the points' EDF.
     """
     rows = []
+    ratio = float(base["recording"]["duration_s"]) / float(new["recording"]["duration_s"])
     for ch, b in base["channels"].items():
         n = new["channels"].get(ch)
         if n is None:
@@ -89,7 +90,9 @@ def static_rows(base: dict, new: dict) -> list:
                 vb, db, _ = _allan_point(b, tau)
                 vn, dn, _ = _allan_point(n, tau)
                 f_dof = (vb, db, vn, dn)
-            rows.append(compare.compare_estimates(ch, term, be, ne, f_dof))
+            row = compare.compare_estimates(ch, term, be, ne, f_dof)
+            row["length_ratio"] = max(ratio, 1.0)
+            rows.append(row)
     return rows
 
 
@@ -131,7 +134,9 @@ def odometry_rows(base: dict, new: dict) -> list:
 
 def targets_rows(base: dict, new: dict) -> list:
     b, n = base["camera"], new["camera"]
-    rows = [compare.compare_estimates("pixel", k, b["pixel"]["sigma"][k], n["pixel"]["sigma"][k])
+    rows = [{**compare.compare_estimates("pixel", k, b["pixel"]["sigma"][k],
+                                         n["pixel"]["sigma"][k]),
+             "more_of": "targets (the spread between targets limits the systematic part)"}
             for k in ("u", "v")]
     rows.append(compare.compare_estimates("all", "outlier_fraction",
                                           {**b["outlier_fraction"], "unit": "1"},
@@ -252,7 +257,7 @@ def _sections(job, baseline, recording, base, new, comps, overall, spec, toleran
             "baseline_upper_bound": num(c.baseline_bound), "new_upper_bound": num(c.new_bound),
             "ratio": num(c.ratio), "test": c.test, "p_value": num(c.p_value),
             "p_holm": num(c.p_adjusted), "unit": c.unit,
-            **({"record_longer_factor": num(c.longer)} if c.longer else {}),
+            **({"more_data_factor": num(c.longer), "more_of": c.more_of} if c.longer else {}),
             **({"within_spec": c.within_spec} if c.within_spec is not None else {}),
         }
     out = {
@@ -289,7 +294,8 @@ def summary(res: RecheckResult) -> str:
             what = (f"bound {c.baseline_bound:.3g}" if c.baseline is None and c.baseline_bound
                     else f"{c.baseline}") + " → " + (
                 f"bound {c.new_bound:.3g}" if c.new is None and c.new_bound else f"{c.new}")
-        extra = (f" (record {c.longer:.2g}× longer to decide)" if c.longer else "")
+        extra = ((f" (record {c.longer:.2g}× longer to decide)" if c.more_of == "recording"
+                  else f" ({c.longer:.2g}× more {c.more_of} to decide)") if c.longer else "")
         p = f", p = {c.p_adjusted:.2g}" if c.p_adjusted is not None else ""
         lines.append(f"  {c.channel}.{c.name}: {c.verdict}{p}; {what}{extra}")
     return "\n".join(lines)
