@@ -296,7 +296,8 @@ def summary(res: RecheckResult) -> str:
                 f"bound {c.new_bound:.3g}" if c.new is None and c.new_bound else f"{c.new}")
         extra = ((f" (record {c.longer:.2g}× longer to decide)" if c.more_of == "recording"
                   else f" ({c.longer:.2g}× more {c.more_of} to decide)") if c.longer else "")
-        p = f", p = {c.p_adjusted:.2g}" if c.p_adjusted is not None else ""
+        p = ("" if c.p_adjusted is None else f", p = {c.p_adjusted:.2g}"
+             if c.p_adjusted > 1e-16 else ", p < 1e-16")
         lines.append(f"  {c.channel}.{c.name}: {c.verdict}{p}; {what}{extra}")
     return "\n".join(lines)
 
