@@ -99,6 +99,8 @@ def _parser() -> argparse.ArgumentParser:
     r.add_argument("--tolerance", type=float, default=1.25,
                    help="change (ratio) a re-check must be able to see to say consistent "
                    "(default 1.25)")
+    r.add_argument("--alpha", type=float, default=0.01,
+                   help="family-wise false-alarm rate, Holm-corrected (default 0.01)")
     r.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     r.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
     _history_options(r)
@@ -188,7 +190,8 @@ def main(argv: list[str] | None = None) -> int:
 
             result = run_recheck(args.baseline, args.recording, args.output, args.truth,
                                  args.limits, args.tolerance, args.overwrite,
-                                 use_cache=not args.no_cache, command=command)
+                                 use_cache=not args.no_cache, command=command,
+                                 alpha=args.alpha)
             print(recheck_summary(result))
             if args.output:
                 print(f"wrote {args.output}")

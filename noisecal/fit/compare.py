@@ -24,7 +24,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-ALPHA = 0.05
+ALPHA = 0.01
+"""Family-wise false-alarm rate of a re-check (Holm): a 'changed' verdict sends a unit
+back for characterisation, so false alarms are kept rare."""
 POWER_Z = stats.norm.ppf(0.8)
 DEFAULT_TOLERANCE = 1.25
 """Ratio (in standard deviation) a re-check must be able to see to call a parameter consistent."""
@@ -162,7 +164,8 @@ def compare_estimates(channel: str, name: str, base: dict, new: dict,
     return row
 
 
-def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | None = None):
+def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | None = None,
+             alpha: float = ALPHA):
     """Holm-correct the rows' p-values and give each its verdict.
 
     Returns
@@ -185,7 +188,7 @@ def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | No
                 longer = r.get("length_ratio")
             else:
                 verdict = "not resolved"  # in neither recording: nothing to compare
-        elif p_adj < ALPHA:
+        elif p_adj < alpha:
             up = r["ratio"] is not None and r["ratio"] > 1
             verdict = "worse" if up == r["higher_is_worse"] else "better"
         else:
@@ -194,7 +197,7 @@ def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | No
                 verdict = "consistent"
             else:
                 # Detectable change at 80 % power after Holm's first step.
-                z_a = stats.norm.ppf(1 - ALPHA / (2 * max(1, len(rows))))
+                z_a = stats.norm.ppf(1 - alpha / (2 * max(1, len(rows))))
                 need = (z_a + POWER_Z) * se
                 if need <= np.log(tolerance):
                     verdict = "consistent"

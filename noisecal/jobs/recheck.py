@@ -66,6 +66,16 @@ def _allan_point(entry: dict, tau: float):
     return float(pts["deviation"][i]) ** 2, float(pts["edf"][i]), float(taus[i])
 
 
+def _white_edf(entry: dict, edf: float) -> float:
+    """EDF of the τ0 point: for white rate noise the exact 2·(terms)/3 (the first
+    differences overlap, correlation −1/2); allantools' figure there is about 17 %
+    high (README, known limits), which would make the F-test too eager."""
+    pts = entry["allan_points"]
+    if int(pts["noise_alpha"][0]) == 0:
+        return 2.0 * float(pts["terms"][0]) / 3.0
+    return edf
+
+
 def static_rows(base: dict, new: dict) -> list:
     """Rows for every channel and term of two static blocks.
 
@@ -89,6 +99,8 @@ def static_rows(base: dict, new: dict) -> list:
                     tau = float(b["allan_points"]["tau_s"][0])
                 vb, db, _ = _allan_point(b, tau)
                 vn, dn, _ = _allan_point(n, tau)
+                if term == "white_noise":
+                    db, dn = _white_edf(b, db), _white_edf(n, dn)
                 f_dof = (vb, db, vn, dn)
             row = compare.compare_estimates(ch, term, be, ne, f_dof)
             row["length_ratio"] = max(ratio, 1.0)
@@ -230,7 +242,8 @@ def read_limits(path: str | None) -> dict | None:
 
 def recheck(baseline: str, recording: str, truth: str | None = None,
             limits: str | None = None, tolerance: float = compare.DEFAULT_TOLERANCE,
-            use_cache: bool = True, command: str = "") -> RecheckResult:
+            use_cache: bool = True, command: str = "", alpha: float = compare.ALPHA
+            ) -> RecheckResult:
     """Run the baseline's job on a new recording and compare every parameter."""
     base = read_yaml(Path(baseline), "baseline")
     if not isinstance(base, dict) or base.get("layout") not in JOBS:
@@ -238,17 +251,21 @@ def recheck(baseline: str, recording: str, truth: str | None = None,
                          f"{', '.join(JOBS)})")
     if not tolerance > 1:
         raise InputError(f"--tolerance {tolerance}: give a ratio above 1, e.g. 1.25")
+    if not 0 < alpha < 0.5:
+        raise InputError(f"--alpha {alpha}: give a false-alarm rate between 0 and 0.5, "
+                         "e.g. 0.01")
     job = JOBS[base["layout"]]
     lim = read_limits(limits)
     new = rerun(job, base, recording, truth, baseline, use_cache)
     rows = ROWS[job](base, new)
-    comps, overall, spec = compare.verdicts(rows, tolerance, lim)
+    comps, overall, spec = compare.verdicts(rows, tolerance, lim, alpha)
     sections = _sections(job, baseline, recording, base, new, comps, overall, spec, tolerance,
-                         command)
+                         command, alpha)
     return RecheckResult(job, overall, spec, comps, new, sections)
 
 
-def _sections(job, baseline, recording, base, new, comps, overall, spec, tolerance, command):
+def _sections(job, baseline, recording, base, new, comps, overall, spec, tolerance, command,
+              alpha):
     num = yaml_block.num
     params: dict = {}
     for c in comps:
@@ -271,7 +288,7 @@ def _sections(job, baseline, recording, base, new, comps, overall, spec, toleran
                        "recording": recording},
         "verdict": overall,
         "exit_status": EXIT[overall],
-        "method": {"multiple_comparisons": "Holm", "alpha": compare.ALPHA,
+        "method": {"multiple_comparisons": "Holm", "alpha": alpha,
                    "tolerance_ratio": tolerance,
                    "inconclusive": "not significant, and a change of the tolerance ratio "
                                    "would not have been seen at 80 % power"},
@@ -305,7 +322,8 @@ def summary(res: RecheckResult) -> str:
 def run_recheck(baseline: str, recording: str, out: str | None = None,
                 truth: str | None = None, limits: str | None = None,
                 tolerance: float = compare.DEFAULT_TOLERANCE, overwrite: bool = False,
-                use_cache: bool = True, command: str = "") -> RecheckResult:
+                use_cache: bool = True, command: str = "", alpha: float = compare.ALPHA
+                ) -> RecheckResult:
     """Re-check and write the YAML block (and for a static baseline the Allan plot)."""
     inputs = [Path(baseline), Path(recording)] + ([Path(truth)] if truth else []) + \
         ([Path(limits)] if limits else [])
@@ -317,7 +335,7 @@ def run_recheck(baseline: str, recording: str, out: str | None = None,
         plot_path = out_path.with_suffix(".png")
         for target in (out_path, plot_path):
             check_target(target, inputs, overwrite)
-    res = recheck(baseline, recording, truth, limits, tolerance, use_cache, command)
+    res = recheck(baseline, recording, truth, limits, tolerance, use_cache, command, alpha)
     if out_path:
         if res.job == "static":
             from ..export.plot import recheck_figure
