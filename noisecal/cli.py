@@ -195,7 +195,8 @@ def main(argv: list[str] | None = None) -> int:
             print(recheck_summary(result))
             if args.output:
                 print(f"wrote {args.output}")
-            sha = (result.new_sections.get("provenance", {}).get("input") or {}).get("sha256", "")
+            prov = result.new_sections.get("provenance", {})
+            sha = (prov.get("input") or prov.get("detections") or {}).get("sha256", "")
             _store(args, "recheck", result.new_sections, sha, result.verdict)
             return result.exit_status
         elif args.command == "history":
