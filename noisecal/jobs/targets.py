@@ -139,7 +139,11 @@ def analyse(camera: Camera, survey: Survey, det: Detections, ground: str = "ray"
             if np.any(hit := (survey.index(det.ids) == k)) else [np.nan, np.nan]
             for k in range(len(survey.ids))])
     else:
-        projected = geo.project(survey.xyz, camera, f"{survey.source}: target ")
+        # Only the detected targets must be in view; a survey may hold others.
+        seen = np.unique(survey.index(det.ids))
+        projected = np.full((len(survey.ids), 2), np.nan)
+        projected[seen] = geo.project(survey.xyz[seen], camera,
+                                      f"{survey.source}: a detected target, ")
     if det.uv.shape[0] < 50:
         raise InputError(f"{det.source}: {det.uv.shape[0]} detections; at least 50 are needed "
                          "for a covariance with a useful interval")

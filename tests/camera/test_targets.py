@@ -197,3 +197,15 @@ def test_detections_outside_the_poses(tmp_path, run_cli):
                                 poses, "-o", tmp_path / "o.yaml")
     assert status == 2 and "outside the poses" in stderr and len(stderr.strip().splitlines()) == 1
     assert not (tmp_path / "o.yaml").exists()
+
+
+def test_undetected_target_behind_the_camera_is_allowed(tmp_path, run_cli):
+    """A survey may hold targets this camera never sees (behind it, for another
+    camera): only detected targets must be in front."""
+    rows = [",".join(r.split(",")[:4]) for r in
+            (ROOT / "recordings/yard_survey.csv").read_text().splitlines()[2:]]
+    rows.append("BACK1,-20.0,0.0,0.0")
+    det, survey, cam = _write(tmp_path, survey_rows=rows)
+    status, _, err = run_cli("targets", det, "--survey", survey, "--camera", cam, "-o",
+                             tmp_path / "o.yaml")
+    assert status == 0, err
