@@ -198,7 +198,9 @@ def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | No
             else:
                 # Detectable change at 80 % power after Holm's first step.
                 z_a = stats.norm.ppf(1 - alpha / (2 * max(1, len(rows))))
-                need = (z_a + POWER_Z) * se
+                # The tolerance is a ratio of standard deviations: a variance-like
+                # parameter (power 2: α, a law's coefficients) moves twice as far in log.
+                need = (z_a + POWER_Z) * se / r.get("power", 1)
                 if need <= np.log(tolerance):
                     verdict = "consistent"
                 else:

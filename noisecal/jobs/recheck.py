@@ -136,8 +136,9 @@ def motion_rows(base: dict, new: dict) -> list:
 
 
 def odometry_rows(base: dict, new: dict) -> list:
-    rows = [compare.compare_estimates("odometry", k, base["odometry"][k], new["odometry"][k])
-            for k in ("alpha1", "alpha2", "alpha3", "alpha4")]
+    # The α are variance coefficients: the tolerance (a ratio of σ) applies to √α.
+    rows = [{**compare.compare_estimates("odometry", k, base["odometry"][k], new["odometry"][k]),
+             "power": 2} for k in ("alpha1", "alpha2", "alpha3", "alpha4")]
     rows.append(compare.compare_estimates("all", "time_offset",
                                           base["alignment"]["time_offset"],
                                           new["alignment"]["time_offset"], linear=True))

@@ -92,3 +92,18 @@ def test_bad_baselines_exit_two(tmp_path, run_cli):
     run_cli("static", _rate(tmp_path, "c.csv", 1), "-o", base, "--reps", 40, "--quiet")
     status, _, err = run_cli("recheck", base, _rate(tmp_path, "d.csv", 2), "--limits", lim)
     assert status == 2 and "must be {max: number}" in err
+
+
+def test_odometry_baseline(tmp_path, run_cli):
+    """An odometry baseline re-checked on its own encoder run: the α are variance
+    coefficients, so the tolerance applies to √α; α4, pinned only by the turns, is
+    inconclusive at the default tolerance and consistent at a loose one."""
+    o = tmp_path / "o.yaml"
+    assert run_cli("motion", REC / "encoder_ticks.csv", "--truth", REC / "encoder_truth.csv",
+                   "--odometry", REC / "encoder_config.yaml", "-o", o, "--quiet")[0] == 0
+    args = ("recheck", o, REC / "encoder_ticks.csv", "--truth", REC / "encoder_truth.csv")
+    status, out, err = run_cli(*args)
+    assert status == 3 and "alpha4: inconclusive" in out, out + err
+    assert "alpha3: consistent" in out
+    status, out, err = run_cli(*args, "--tolerance", 6)
+    assert status == 0, out + err
