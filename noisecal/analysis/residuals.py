@@ -114,7 +114,8 @@ class RobustScatter:
     support: np.ndarray
 
 
-def _mahalanobis2(x, loc, cov):
+def mahalanobis2(x: np.ndarray, loc: np.ndarray, cov: np.ndarray) -> np.ndarray:
+    """Squared Mahalanobis distance of each row of x (n, p) from loc under cov, (n,)."""
     diff = x - loc
     sol = np.linalg.solve(cov, diff.T).T
     return np.einsum("ij,ij->i", diff, sol)
@@ -128,7 +129,7 @@ def _c_steps(x, subset, h, max_iter=50):
         det = np.linalg.det(cov)
         if det <= 0 or not np.isfinite(det):
             return loc, cov, np.inf
-        d2 = _mahalanobis2(x, loc, cov)
+        d2 = mahalanobis2(x, loc, cov)
         subset = np.argpartition(d2, h - 1)[:h]
         if det >= det_old * (1 - 1e-12):
             break
@@ -176,18 +177,18 @@ def min_cov_det(x: np.ndarray, support_fraction: float = 0.75, seed: int = 0,
     for _ in range(starts):
         cand = _c_steps(x, rng.choice(n, size=p + 1, replace=False), h, max_iter=3)
         if cand[2] < best[2]:
-            cand = _c_steps(x, np.argpartition(_mahalanobis2(x, cand[0], cand[1]), h - 1)[:h], h)
+            cand = _c_steps(x, np.argpartition(mahalanobis2(x, cand[0], cand[1]), h - 1)[:h], h)
             if cand[2] < best[2]:
                 best = cand
     loc, cov, _ = best
     # Consistency at the Gaussian: the h smallest distances are a truncated chi-square.
-    d2 = _mahalanobis2(x, loc, cov)
+    d2 = mahalanobis2(x, loc, cov)
     cov = cov * np.median(d2) / stats.chi2.ppf(0.5, p)
-    d2 = _mahalanobis2(x, loc, cov)
+    d2 = mahalanobis2(x, loc, cov)
     keep = d2 <= stats.chi2.ppf(0.975, p)
     loc = x[keep].mean(axis=0)
     cov = np.cov(x[keep], rowvar=False).reshape(p, p) / truncation_factor(0.975, p)
-    return RobustScatter(loc, cov, _mahalanobis2(x, loc, cov), keep)
+    return RobustScatter(loc, cov, mahalanobis2(x, loc, cov), keep)
 
 
 def truncation_factor(probability: float, p: int) -> float:

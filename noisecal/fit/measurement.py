@@ -21,8 +21,8 @@ from functools import lru_cache
 import numpy as np
 from scipy import stats
 
-from ..analysis.residuals import (Shape, acf, effective_size, ljung_box, min_cov_det,
-                                  shape, truncation_factor)
+from ..analysis.residuals import (Shape, acf, effective_size, ljung_box, mahalanobis2,
+                                  min_cov_det, shape, truncation_factor)
 from ..errors import AnalysisError
 from ..types import Estimate
 from . import variance_model
@@ -134,17 +134,39 @@ def gate_efficiency(p: int, probability: float, n: int = 2000, reps: int = 300) 
     diag = np.empty((reps, p))
     for r in range(reps):
         z = rng.standard_normal((n, p))
-        inl = np.ones(n, bool)
-        for _ in range(REGATE_PASSES):
-            loc = z[inl].mean(axis=0)
-            cov = np.atleast_2d(np.cov(z[inl], rowvar=False)) / factor
-            d = z - loc
-            new = np.einsum("ij,ij->i", d, np.linalg.solve(cov, d.T).T) <= gamma
-            if np.array_equal(new, inl):
-                break
-            inl = new
+        _, cov = regate(z, np.ones(n, bool), gamma, factor)
         diag[r] = np.diag(cov)
     return float(max(1.0, np.mean(np.var(diag, axis=0)) * n / 2))
+
+
+def regate(z: np.ndarray, inl: np.ndarray, gamma: float, factor: float):
+    """Re-draw the gate with the inliers' own mean and cut-corrected covariance until
+    the set holds (at most ``REGATE_PASSES`` times).
+
+    Parameters
+    ----------
+    z : ndarray, shape (n, p)
+    inl : ndarray of bool, shape (n,)
+        The starting inlier set.
+    gamma : float
+        Gate on the squared Mahalanobis distance.
+    factor : float
+        Variance share a Gaussian keeps inside the gate (:func:`truncation_factor`).
+
+    Returns
+    -------
+    inl : ndarray of bool, shape (n,)
+    cov : ndarray, shape (p, p)
+        The covariance of the last pass.
+    """
+    for _ in range(REGATE_PASSES):
+        loc = z[inl].mean(axis=0)
+        cov = np.atleast_2d(np.cov(z[inl], rowvar=False)) / factor
+        new = mahalanobis2(z, loc, cov) <= gamma
+        if np.array_equal(new, inl):
+            break
+        inl = new
+    return inl, cov
 
 
 def variance_interval(s2: float, dof: float, level: float = 0.95) -> tuple[float, float]:
@@ -271,17 +293,10 @@ def fit_measurement(r: np.ndarray, names: tuple, units: tuple, period: float,
     # Re-gate with the inliers' own mean and (cut-corrected) covariance until the
     # set holds: the MCD scatter is less efficient, and a gate drawn with it would
     # carry its error into R.
-    z = r / scale
-    factor0 = truncation_factor(gate_probability, c)
-    for _ in range(REGATE_PASSES):
-        loc = z[inl].mean(axis=0)
-        cov = np.atleast_2d(np.cov(z[inl], rowvar=False)) / factor0
-        diff = z - loc
-        d2 = np.einsum("ij,ij->i", diff, np.linalg.solve(cov, diff.T).T)
-        new = d2 <= gamma
-        if np.array_equal(new, inl):
-            break
-        inl = new
+    # The MCD scatter is less efficient; a gate drawn with it would carry its error
+    # into R, so the gate is re-drawn with the inliers' own covariance.
+    factor = truncation_factor(gate_probability, c)
+    inl, _ = regate(r / scale, inl, gamma, factor)
     k_out = int(n - np.count_nonzero(inl))
     lo, hi = clopper_pearson(k_out, n, level)
     # A Gaussian inlier falls outside the gate with probability 1 - p: the
@@ -295,7 +310,6 @@ def fit_measurement(r: np.ndarray, names: tuple, units: tuple, period: float,
                         "robust (MCD) model and chi-square gate, less the gate's expected "
                         "rejection of Gaussian inliers; Clopper-Pearson interval", level)
     ri = r[inl]
-    factor = truncation_factor(gate_probability, c)
     R = np.atleast_2d(np.cov(ri, rowvar=False)) / factor
     # Effective sample sizes of the correlated inliers, less what the gate's own
     # randomness costs (see gate_efficiency).
