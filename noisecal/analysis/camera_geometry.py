@@ -75,11 +75,23 @@ def project(points: np.ndarray, camera, where: str = "") -> np.ndarray:
     return np.column_stack([K[0, 0] * xd[:, 0] + K[0, 2], K[1, 1] * xd[:, 1] + K[1, 2]])
 
 
-def pixel_rays(uv: np.ndarray, camera) -> np.ndarray:
-    """Pixels (n, 2) → unit ray directions in the world (n, 3), distortion removed."""
+def normalized_undistorted(uv: np.ndarray, camera) -> np.ndarray:
+    """Pixels (n, 2) → normalized image points with the distortion removed, (n, 2)."""
     K = camera.K
     xd = np.column_stack([(uv[:, 0] - K[0, 2]) / K[0, 0], (uv[:, 1] - K[1, 2]) / K[1, 1]])
-    xn = undistort(xd, camera.distortion)
+    return undistort(xd, camera.distortion)
+
+
+def undistorted_pixels(uv: np.ndarray, camera) -> np.ndarray:
+    """Pixels (n, 2) → where a distortion-free camera would see them, px (n, 2)."""
+    K = camera.K
+    xn = normalized_undistorted(uv, camera)
+    return np.column_stack([xn[:, 0] * K[0, 0] + K[0, 2], xn[:, 1] * K[1, 1] + K[1, 2]])
+
+
+def pixel_rays(uv: np.ndarray, camera) -> np.ndarray:
+    """Pixels (n, 2) → unit ray directions in the world (n, 3), distortion removed."""
+    xn = normalized_undistorted(uv, camera)
     v = np.column_stack([xn, np.ones(xn.shape[0])])
     rays = np.einsum("nij,nj->ni", camera.R, v) if camera.R.ndim == 3 else v @ camera.R.T
     return rays / np.linalg.norm(rays, axis=1, keepdims=True)

@@ -255,11 +255,8 @@ def fit_camera(camera, survey, detections, gate_probability: float = GATE_PROBAB
         if camera.homography is None:
             raise InputError(f"{camera.source}: --ground homography needs 'ground: "
                              "{homography: ...}' in the camera file; or use --ground dlt")
-        K = camera.K
-        und = geo.undistort(np.column_stack([(ui[:, 0] - K[0, 2]) / K[0, 0],
-                                             (ui[:, 1] - K[1, 2]) / K[1, 1]]), camera.distortion)
-        pix = np.column_stack([und[:, 0] * K[0, 0] + K[0, 2], und[:, 1] * K[1, 1] + K[1, 2]])
-        g = geo.apply_homography(np.linalg.inv(camera.homography), pix)
+        g = geo.apply_homography(np.linalg.inv(camera.homography),
+                                 geo.undistorted_pixels(ui, camera))
     else:
         g = geo.ground_point(ui, subset(inl), xi[:, 2])
     err = g - xi[:, :2]

@@ -64,12 +64,8 @@ def estimate_ground_homography(camera: Camera, survey: Survey, det: Detections) 
     if len(floor) < 4:
         raise InputError(f"{survey.source}: --ground dlt needs at least 4 detected floor "
                          f"targets (|z| <= {FLOOR_Z_M} m); {len(floor)} found")
-    K = camera.K
     med = np.array([np.median(det.uv[idx == k], axis=0) for k in floor])
-    und = geo.undistort(np.column_stack([(med[:, 0] - K[0, 2]) / K[0, 0],
-                                         (med[:, 1] - K[1, 2]) / K[1, 1]]), camera.distortion)
-    pix = np.column_stack([und[:, 0] * K[0, 0] + K[0, 2], und[:, 1] * K[1, 1] + K[1, 2]])
-    H = geo.homography_dlt(survey.xyz[floor, :2], pix)
+    H = geo.homography_dlt(survey.xyz[floor, :2], geo.undistorted_pixels(med, camera))
     check_homography(H, f"{survey.source}: the estimated homography")
     return H
 

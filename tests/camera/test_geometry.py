@@ -33,9 +33,7 @@ def test_undistort_matches_opencv():
     cam = camera(dist=(-0.21, 0.08, 0.0011, -0.0007, -0.015))
     rng = np.random.default_rng(2)
     uv = np.column_stack([rng.uniform(50, 1870, 100), rng.uniform(50, 1030, 100)])
-    ours = geo.undistort(np.column_stack([(uv[:, 0] - cam.K[0, 2]) / cam.K[0, 0],
-                                          (uv[:, 1] - cam.K[1, 2]) / cam.K[1, 1]]),
-                         cam.distortion)
+    ours = geo.normalized_undistorted(uv, cam)
     ref = cv2.undistortPoints(uv[:, None, :], cam.K, cam.distortion,
                               criteria=(cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 100,
                                         1e-12))[:, 0, :]

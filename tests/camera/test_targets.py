@@ -209,3 +209,22 @@ def test_undetected_target_behind_the_camera_is_allowed(tmp_path, run_cli):
     status, _, err = run_cli("targets", det, "--survey", survey, "--camera", cam, "-o",
                              tmp_path / "o.yaml")
     assert status == 0, err
+
+
+def test_ground_by_dlt_homography_equals_the_ray(tmp_path, run_cli):
+    """For floor targets a homography fitted by normalized DLT to the undistorted
+    median detections maps pixels to the ground as the ray-plane intersection does
+    (a plane seen by a pinhole is a homography; Hartley & Zisserman §2.3): the ground
+    table agrees within 2 % row by row."""
+    rec = ROOT / "recordings"
+    tables = {}
+    for method in ("ray", "dlt"):
+        out = tmp_path / f"{method}.yaml"
+        status, _, err = run_cli("targets", rec / "yard_detections.csv", "--survey",
+                                 rec / "yard_survey.csv", "--camera", rec / "yard_camera.yaml",
+                                 "-o", out, "--ground", method)
+        assert status == 0, err
+        tables[method] = yaml.safe_load(out.read_text())["camera"]["ground"]["table"]
+    for a, b in zip(tables["ray"], tables["dlt"]):
+        assert b["sigma_radial_m"] == pytest.approx(a["sigma_radial_m"], rel=0.02)
+        assert b["sigma_lateral_m"] == pytest.approx(a["sigma_lateral_m"], rel=0.02)
