@@ -136,9 +136,6 @@ def compare_estimates(channel: str, name: str, base: dict, new: dict,
         se = float(np.hypot(*half))
         row["test"] = "z-test of the difference from the two 95 % intervals"
         row["p_value"] = float(2 * stats.norm.sf(abs(nv - bv) / se)) if se > 0 else 1.0
-        row["se_log"] = None
-        row["se_linear"] = se
-        row["scale"] = max(abs(bv), abs(nv), se)
         # For a signed quantity "larger" means larger in magnitude.
         row["ratio"] = abs(nv) / abs(bv) if bv else None
         return row

@@ -19,7 +19,7 @@ import numpy as np
 from .. import __version__
 from ..errors import InputError
 from ..export import yaml_block
-from ..export.atomic import check_target, write_text
+from ..export.atomic import output_paths, write_text
 from ..fit import compare
 from ..fit.simulate import TERM_NAMES
 from ..ingest.yaml_file import read_yaml
@@ -63,7 +63,7 @@ def _allan_point(entry: dict, tau: float):
     pts = entry["allan_points"]
     taus = np.array(pts["tau_s"], dtype=float)
     i = int(np.argmin(np.abs(np.log(taus) - np.log(tau))))
-    return float(pts["deviation"][i]) ** 2, float(pts["edf"][i]), float(taus[i])
+    return float(pts["deviation"][i]) ** 2, float(pts["edf"][i])
 
 
 def _white_edf(entry: dict, edf: float) -> float:
@@ -93,12 +93,11 @@ def static_rows(base: dict, new: dict) -> list:
             be, ne = b[term], n[term]
             f_dof = None
             if "value" in be and "value" in ne:
-                tau = (float(np.sqrt(np.prod(be["tau_s"]))) if be.get("tau_s")
-                       else float(b["allan_points"]["tau_s"][0]))
-                if term == "white_noise":
-                    tau = float(b["allan_points"]["tau_s"][0])
-                vb, db, _ = _allan_point(b, tau)
-                vn, dn, _ = _allan_point(n, tau)
+                at_tau0 = term == "white_noise" or not be.get("tau_s")
+                tau = (float(b["allan_points"]["tau_s"][0]) if at_tau0
+                       else float(np.sqrt(np.prod(be["tau_s"]))))
+                vb, db = _allan_point(b, tau)
+                vn, dn = _allan_point(n, tau)
                 if term == "white_noise":
                     db, dn = _white_edf(b, db), _white_edf(n, dn)
                 f_dof = (vb, db, vn, dn)
@@ -326,16 +325,10 @@ def run_recheck(baseline: str, recording: str, out: str | None = None,
                 use_cache: bool = True, command: str = "", alpha: float = compare.ALPHA
                 ) -> RecheckResult:
     """Re-check and write the YAML block (and for a static baseline the Allan plot)."""
-    inputs = [Path(baseline), Path(recording)] + ([Path(truth)] if truth else []) + \
-        ([Path(limits)] if limits else [])
+    inputs = [baseline, recording] + ([truth] if truth else []) + ([limits] if limits else [])
     out_path = plot_path = None
     if out:
-        out_path = Path(out)
-        if out_path.suffix.lower() not in (".yaml", ".yml"):
-            raise InputError(f"-o {out}: the output is a YAML block; give a .yaml path")
-        plot_path = out_path.with_suffix(".png")
-        for target in (out_path, plot_path):
-            check_target(target, inputs, overwrite)
+        out_path, plot_path = output_paths(out, None, inputs, overwrite)
     res = recheck(baseline, recording, truth, limits, tolerance, use_cache, command, alpha)
     if out_path:
         if res.job == "static":
