@@ -18,7 +18,7 @@ def store(db: str, unit: str, sensor: str, job: str, sections: dict, input_sha25
           verdict: str | None = None, parameter_sections: dict | None = None) -> int:
     """Record a run (its YAML content's fitted numbers) under ``unit``."""
     params = []
-    for channel, name, e in estimates_of(parameter_sections or sections):
+    for channel, name, e, _ in estimates_of(parameter_sections or sections):
         if "value" in e:
             lo, hi = e.get("ci95", [None, None])
             params.append(history.Parameter(channel, name, e["value"], lo, hi, e.get("unit", "")))

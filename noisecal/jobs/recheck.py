@@ -76,88 +76,94 @@ def _white_edf(entry: dict, edf: float) -> float:
     return edf
 
 
-def static_rows(base: dict, new: dict) -> list:
-    """Rows for every channel and term of two static blocks.
+LINEAR = {"linear": True}
+"""Signed quantities or fractions: compared by the difference, not the ratio."""
+CAMERA_SIGMA = {"more_of": "targets (the spread between targets limits the systematic part)"}
 
-    White noise is F-tested at τ0 (where it dominates a rate sensor's curve);
-    every other resolved term at the Allan point nearest the geometric middle
-    of the τ range that constrains it, through the points' EDF.
+
+def estimates_of(sections: dict) -> list:
+    """Every fitted number of a job's block: (channel, name, Estimate-like dict, how).
+
+    ``how`` says how a re-check compares it: ``linear`` (by the difference),
+    ``power`` 2 (a variance coefficient: the tolerance, a ratio of σ, applies to
+    its square root), ``more_of`` (what more data means). The history stores the
+    same numbers.
     """
-    rows = []
-    ratio = float(base["recording"]["duration_s"]) / float(new["recording"]["duration_s"])
-    for ch, b in base["channels"].items():
-        n = new["channels"].get(ch)
-        if n is None:
-            continue
-        for term in TERM_NAMES:
-            be, ne = b[term], n[term]
-            f_dof = None
-            if "value" in be and "value" in ne:
-                at_tau0 = term == "white_noise" or not be.get("tau_s")
-                tau = (float(b["allan_points"]["tau_s"][0]) if at_tau0
-                       else float(np.sqrt(np.prod(be["tau_s"]))))
-                vb, db = _allan_point(b, tau)
-                vn, dn = _allan_point(n, tau)
-                if term == "white_noise":
-                    db, dn = _white_edf(b, db), _white_edf(n, dn)
-                f_dof = (vb, db, vn, dn)
-            row = compare.compare_estimates(ch, term, be, ne, f_dof)
-            row["length_ratio"] = max(ratio, 1.0)
-            rows.append(row)
-    return rows
+    layout = sections.get("layout")
+    out = []
+    if layout == "noisecal.static/1":
+        for ch, entry in sections["channels"].items():
+            for term in TERM_NAMES:
+                out.append((ch, term, entry[term], {}))
+    elif layout == "noisecal.motion/1":
+        m = sections["measurement"]
+        for ch in m["sigma"]:
+            out.append((ch, "sigma", m["sigma"][ch], {}))
+            out.append((ch, "bias", m["bias"][ch], LINEAR))
+        out.append(("all", "outlier_fraction", {**m["outlier_fraction"], "unit": "1"}, LINEAR))
+        out.append(("all", "time_offset", sections["alignment"]["time_offset"], LINEAR))
+    elif layout == "noisecal.odometry/1":
+        for k in ("alpha1", "alpha2", "alpha3", "alpha4"):
+            out.append(("odometry", k, sections["odometry"][k], {"power": 2}))
+        out.append(("all", "time_offset", sections["alignment"]["time_offset"], LINEAR))
+    elif layout == "noisecal.targets/1":
+        for k in ("u", "v"):
+            out.append(("pixel", k, sections["camera"]["pixel"]["sigma"][k], CAMERA_SIGMA))
+        out.append(("all", "outlier_fraction",
+                    {**sections["camera"]["outlier_fraction"], "unit": "1"}, LINEAR))
+    return out
 
 
-def motion_rows(base: dict, new: dict) -> list:
-    """Rows of two motion blocks: σ by F-test with effective sample sizes, bias,
-    outlier fraction and time offset by interval tests."""
+def _f_dof(base: dict, new: dict, ch: str, name: str, be: dict, ne: dict):
+    """(var_base, dof_base, var_new, dof_new) where an F-test applies, else None.
+
+    Static: white noise at τ0 (where it dominates a rate sensor's curve), every
+    other resolved term at the Allan point nearest the geometric middle of the τ
+    range that constrains it, through the points' EDF. Motion: each inlier σ
+    with the effective sample sizes.
+    """
+    if "value" not in be or "value" not in ne:
+        return None
+    if base["layout"] == "noisecal.static/1":
+        b, n = base["channels"][ch], new["channels"][ch]
+        at_tau0 = name == "white_noise" or not be.get("tau_s")
+        tau = (float(b["allan_points"]["tau_s"][0]) if at_tau0
+               else float(np.sqrt(np.prod(be["tau_s"]))))
+        vb, db = _allan_point(b, tau)
+        vn, dn = _allan_point(n, tau)
+        if name == "white_noise":
+            db, dn = _white_edf(b, db), _white_edf(n, dn)
+        return vb, db, vn, dn
+    if base["layout"] == "noisecal.motion/1" and name == "sigma":
+        bc = base["measurement"]["channels"].get(ch, {})
+        nc = new["measurement"]["channels"].get(ch, {})
+        if "effective_samples" in bc and "effective_samples" in nc:
+            return (be["value"] ** 2, bc["effective_samples"] - 1,
+                    ne["value"] ** 2, nc["effective_samples"] - 1)
+    return None
+
+
+def comparison_rows(base: dict, new: dict) -> list:
+    """One row per parameter present in both blocks, tested as :func:`estimates_of`
+    and :func:`_f_dof` say."""
+    found = {(ch, name): e for ch, name, e, _ in estimates_of(new)}
+    length_ratio = None
+    if base["layout"] == "noisecal.static/1":
+        # A term resolved before and only bounded now: as long as the baseline decides it.
+        length_ratio = max(1.0, float(base["recording"]["duration_s"]) /
+                           float(new["recording"]["duration_s"]))
     rows = []
-    bm, nm = base["measurement"], new["measurement"]
-    for ch, be in bm["sigma"].items():
-        ne = nm["sigma"].get(ch)
+    for ch, name, be, how in estimates_of(base):
+        ne = found.get((ch, name))
         if ne is None:
             continue
-        f_dof = None
-        bc, nc = bm["channels"].get(ch, {}), nm["channels"].get(ch, {})
-        if "value" in be and "value" in ne and "effective_samples" in bc and \
-                "effective_samples" in nc:
-            f_dof = (be["value"] ** 2, bc["effective_samples"] - 1,
-                     ne["value"] ** 2, nc["effective_samples"] - 1)
-        rows.append(compare.compare_estimates(ch, "sigma", be, ne, f_dof))
-        rows.append(compare.compare_estimates(ch, "bias", bm["bias"][ch], nm["bias"][ch],
-                                              linear=True))
-    rows.append(compare.compare_estimates("all", "outlier_fraction",
-                                          {**bm["outlier_fraction"], "unit": "1"},
-                                          {**nm["outlier_fraction"], "unit": "1"}, linear=True))
-    rows.append(compare.compare_estimates("all", "time_offset",
-                                          base["alignment"]["time_offset"],
-                                          new["alignment"]["time_offset"], linear=True))
+        row = compare.compare_estimates(ch, name, be, ne, _f_dof(base, new, ch, name, be, ne),
+                                        linear=how.get("linear", False))
+        row.update({k: v for k, v in how.items() if k != "linear"})
+        if length_ratio is not None:
+            row["length_ratio"] = length_ratio
+        rows.append(row)
     return rows
-
-
-def odometry_rows(base: dict, new: dict) -> list:
-    # The α are variance coefficients: the tolerance (a ratio of σ) applies to √α.
-    rows = [{**compare.compare_estimates("odometry", k, base["odometry"][k], new["odometry"][k]),
-             "power": 2} for k in ("alpha1", "alpha2", "alpha3", "alpha4")]
-    rows.append(compare.compare_estimates("all", "time_offset",
-                                          base["alignment"]["time_offset"],
-                                          new["alignment"]["time_offset"], linear=True))
-    return rows
-
-
-def targets_rows(base: dict, new: dict) -> list:
-    b, n = base["camera"], new["camera"]
-    rows = [{**compare.compare_estimates("pixel", k, b["pixel"]["sigma"][k],
-                                         n["pixel"]["sigma"][k]),
-             "more_of": "targets (the spread between targets limits the systematic part)"}
-            for k in ("u", "v")]
-    rows.append(compare.compare_estimates("all", "outlier_fraction",
-                                          {**b["outlier_fraction"], "unit": "1"},
-                                          {**n["outlier_fraction"], "unit": "1"}, linear=True))
-    return rows
-
-
-ROWS = {"static": static_rows, "motion": motion_rows, "odometry": odometry_rows,
-        "targets": targets_rows}
 
 
 def _provenance(base: dict, key: str, where: str):
@@ -257,7 +263,7 @@ def recheck(baseline: str, recording: str, truth: str | None = None,
     job = JOBS[base["layout"]]
     lim = read_limits(limits)
     new = rerun(job, base, recording, truth, baseline, use_cache)
-    rows = ROWS[job](base, new)
+    rows = comparison_rows(base, new)
     comps, overall, spec = compare.verdicts(rows, tolerance, lim, alpha)
     sections = _sections(job, baseline, recording, base, new, comps, overall, spec, tolerance,
                          command, alpha)
@@ -339,31 +345,3 @@ def run_recheck(baseline: str, recording: str, out: str | None = None,
                                                {"verdict": "consistent | changed | "
                                                 "inconclusive (exit status 0 | 1 | 3)"}))
     return res
-
-
-def estimates_of(sections: dict) -> list:
-    """(channel, name, Estimate-like dict) of every fitted number of a job's block,
-    for the history database."""
-    layout = sections.get("layout")
-    out = []
-    if layout == "noisecal.static/1":
-        for ch, entry in sections["channels"].items():
-            for term in TERM_NAMES:
-                out.append((ch, term, entry[term]))
-    elif layout == "noisecal.motion/1":
-        m = sections["measurement"]
-        for ch in m["sigma"]:
-            out.append((ch, "sigma", m["sigma"][ch]))
-            out.append((ch, "bias", m["bias"][ch]))
-        out.append(("all", "outlier_fraction", {**m["outlier_fraction"], "unit": "1"}))
-        out.append(("all", "time_offset", sections["alignment"]["time_offset"]))
-    elif layout == "noisecal.odometry/1":
-        for k in ("alpha1", "alpha2", "alpha3", "alpha4"):
-            out.append(("odometry", k, sections["odometry"][k]))
-        out.append(("all", "time_offset", sections["alignment"]["time_offset"]))
-    elif layout == "noisecal.targets/1":
-        for k in ("u", "v"):
-            out.append(("pixel", k, sections["camera"]["pixel"]["sigma"][k]))
-        out.append(("all", "outlier_fraction",
-                    {**sections["camera"]["outlier_fraction"], "unit": "1"}))
-    return out
