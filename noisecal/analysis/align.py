@@ -166,7 +166,7 @@ def _long_run_variance(u: np.ndarray) -> float:
 
 
 def estimate_offset(sensor: np.ndarray, truth: list, t: np.ndarray,
-                    max_offset: float = 1.0, level: float = 0.95) -> Alignment:
+                    max_offset: float = 1.0, level: float = 0.95, where: str = "") -> Alignment:
     """Estimate δ with its interval.
 
     Parameters
@@ -181,6 +181,8 @@ def estimate_offset(sensor: np.ndarray, truth: list, t: np.ndarray,
         Largest |δ| searched, s.
     level : float
         Confidence level.
+    where : str
+        What is being aligned (e.g. the two file names), to begin error messages.
 
     Returns
     -------
@@ -191,6 +193,15 @@ def estimate_offset(sensor: np.ndarray, truth: list, t: np.ndarray,
     AnalysisError
         When the overlap is too short or the truth shows no motion to align on.
     """
+    try:
+        return _estimate_offset(sensor, truth, t, max_offset, level)
+    except AnalysisError as exc:
+        if not where:
+            raise
+        raise AnalysisError(f"{where}: {exc}") from None
+
+
+def _estimate_offset(sensor, truth, t, max_offset, level) -> Alignment:
     inside = _usable(truth, t, 0.0)
     if np.count_nonzero(inside) < 50:
         raise AnalysisError("sensor and truth overlap in fewer than 50 sensor samples; "

@@ -111,10 +111,8 @@ def analyse(sensor: Recording, truth: Recording, mapping: MeasurementMap,
         units.append(unit)
     t_abs = sensor.start_time + np.asarray(sensor.time)
     values = np.column_stack([np.asarray(sensor.channel(n), dtype=float) for n in names])
-    try:
-        alignment = estimate_offset(values, series, t_abs, max_offset)
-    except AnalysisError as exc:
-        raise AnalysisError(f"{sensor.source.path} against {truth.source.path}: {exc}") from None
+    alignment = estimate_offset(values, series, t_abs, max_offset,
+                                where=f"{sensor.source.path} against {truth.source.path}")
     used = alignment.used
     if np.count_nonzero(used) < MIN_SAMPLES:
         raise AnalysisError(f"{sensor.source.path}: only {np.count_nonzero(used)} sensor "

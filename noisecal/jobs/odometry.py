@@ -159,11 +159,9 @@ def analyse(odo: Recording, truth: Recording, cfg: OdometryConfig, max_offset: f
     where = f"{cfg.source}, pose"
     truth_speed, truth_turn = rate_series(truth, cfg.pose, span, where)
     t_abs = odo.start_time + tm
-    try:
-        alignment = estimate_offset(np.column_stack([speed, turn]), [truth_speed, truth_turn],
-                                    t_abs, max_offset)
-    except AnalysisError as exc:
-        raise AnalysisError(f"{odo.source.path} against {truth.source.path}: {exc}") from None
+    alignment = estimate_offset(np.column_stack([speed, turn]), [truth_speed, truth_turn],
+                                t_abs, max_offset,
+                                where=f"{odo.source.path} against {truth.source.path}")
     # Truth pose at the corrected window ends; windows must lie inside the truth.
     times = odo.start_time + np.asarray(odo.time)[bounds] - alignment.offset
     x, y, yaw = (truth_series(truth, mapping, q, where)[0] for q in (
