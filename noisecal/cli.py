@@ -8,6 +8,7 @@ import sys
 
 from . import __version__
 from .errors import InputError, NoisecalError
+from .history import DEFAULT_DB
 
 EXIT_ERROR = 2
 
@@ -23,7 +24,7 @@ def _history_options(p) -> None:
     p.add_argument("--unit", metavar="SERIAL", help="store this run in the history database "
                    "under the unit's serial number")
     p.add_argument("--sensor", help="sensor name stored with --unit (default: the input file)")
-    p.add_argument("--db", default="noisecal.db", help="history database (default noisecal.db "
+    p.add_argument("--db", default=DEFAULT_DB, help="history database (default noisecal.db "
                    "in the working folder)")
 
 
@@ -107,7 +108,7 @@ def _parser() -> argparse.ArgumentParser:
 
     h = sub.add_parser("history", help="a unit's stored runs: table, plot, CSV")
     h.add_argument("unit", metavar="SERIAL")
-    h.add_argument("--db", default="noisecal.db", help="history database (default noisecal.db)")
+    h.add_argument("--db", default=DEFAULT_DB, help="history database (default noisecal.db)")
     h.add_argument("--param", help="only this parameter (name, or channel.name)")
     h.add_argument("--since", help="only runs on or after this date (ISO, e.g. 2026-06-01)")
     h.add_argument("--export", choices=["csv"], help="write one row per run and parameter")

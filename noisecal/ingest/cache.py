@@ -74,15 +74,6 @@ def remember(path: Path, root: Path | None, digest: str) -> None:
     _write_json(root / "index.json", dict(list(table.items())[-1000:]))
 
 
-def content_hash(path: Path, root: Path | None, progress=None) -> str:
-    """The file's SHA-256, from the stat index when the file is unchanged."""
-    digest = known_hash(path, root)
-    if digest is None:
-        digest = file_digest(path, progress)
-        remember(path, root, digest)
-    return digest
-
-
 def _write_json(path: Path, data) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".tmp-", suffix=".json")

@@ -28,8 +28,6 @@ import numpy as np
 from ..errors import InputError
 from .yaml_file import read_yaml
 
-DERIVED_PREFIXES = ("path.", "beacon.")
-DERIVED_NAMES = ("speed", "turn_rate")
 KEYS = {"measures", "pose", "path", "beacons", "covariate"}
 
 
