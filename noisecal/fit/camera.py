@@ -17,6 +17,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 
 import numpy as np
+from scipy import stats
 
 from ..analysis import camera_geometry as geo
 from ..errors import InputError
@@ -203,18 +204,15 @@ def fit_camera(camera, survey, detections, gate_probability: float = GATE_PROBAB
     n_eff = np.array([ch.effective_size for ch in pixel.channels])
     sigma, R_lo, R_hi = {}, np.empty((2, 2)), np.empty((2, 2))
     for j, name in enumerate(("u", "v")):
-        # total = jitter + (spread of target means − its jitter − survey share).
-        # The spread's variance comes from the targets' squared offsets themselves:
-        # near and far targets carry very different survey shares, so a chi-square
-        # on k − 1 dof would understate it. Satterthwaite turns the sum into one
-        # chi-square.
+        # total = jitter + (spread of target means − its jitter − survey share);
+        # Satterthwaite turns the sum's variance into one chi-square.
         v1, d1 = pixel.R[j, j], n_eff[j] - 1
         # The spread's variance from the model in which target k's offset has
         # variance survey_k + systematic + jitter / n_k: targets near the camera
         # carry most of the survey's share, so a chi-square on k − 1 dof would
         # understate it, and the squared offsets of few targets are too noisy to
-        # estimate it from.
-        # R_sys as estimated (it may be negative): clipping it at 0 would bias w up.
+        # estimate it from. R_sys as estimated (it may be negative): clipping it at
+        # 0 would bias w up.
         w = np.maximum(S[:, j, j] + R_sys[j, j] + v1 / counts, v1 / counts)
         # Var of Σ(d_k − d̄)² for independent d_k of variances w_k: 2 tr((C W)²), C
         # the centring matrix.
@@ -235,9 +233,10 @@ def fit_camera(camera, survey, detections, gate_probability: float = GATE_PROBAB
                          f"targets' {name} offsets: the camera's systematic error is poorly "
                          "determined; survey the targets more precisely")
     R_cam[0, 0], R_cam[1, 1] = (sigma[c].value ** 2 for c in ("u", "v"))
+    z = stats.norm.ppf(0.5 + level / 2)
     for i, j in ((0, 1), (1, 0)):
         se = np.sqrt((R_cam[i, j] ** 2 + R_cam[i, i] * R_cam[j, j]) / max(np.min(n_eff) - 1, 1))
-        R_lo[i, j], R_hi[i, j] = R_cam[i, j] - 1.96 * se, R_cam[i, j] + 1.96 * se
+        R_lo[i, j], R_hi[i, j] = R_cam[i, j] - z * se, R_cam[i, j] + z * se
     systematic = {c: Estimate(float(np.sqrt(max(R_sys[j, j], 0.0))), None, None, "px",
                               "spread of the targets' mean offsets less jitter and survey "
                               "(point estimate; k - 1 degrees of freedom)", level)
