@@ -36,3 +36,9 @@ clean:
 ## Benchmarks (a few minutes; not part of make test): reports/bench.json and a table.
 bench: $(STAMP)
 	$(BIN)/python tools/bench.py
+
+## Reference tables on real clock data (allantools 2024.6 sdist from PyPI, not committed):
+## tests/analysis/test_edf_few_clusters.py reads them and skips when the download failed.
+test test-slow: $(VENV)/refdata/allantools-2024.6.tar.gz
+$(VENV)/refdata/allantools-2024.6.tar.gz: $(STAMP)
+	$(BIN)/python -m pip download --quiet --no-deps --no-binary :all: allantools==2024.6 -d $(VENV)/refdata || echo "allantools sdist not downloaded: the reference-table tests will skip"

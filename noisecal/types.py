@@ -219,15 +219,21 @@ class AllanCurve:
     lower, upper : ndarray, shape (k,)
         Interval bounds of the deviation at ``level``.
     edf : ndarray, shape (k,)
-        Equivalent degrees of freedom (Greenhall–Riley).
+        Equivalent degrees of freedom (Greenhall–Riley; total variance: SP 1065
+        Table 7). Where ``identified`` is False, the smallest over the noise types.
     alpha : ndarray of int, shape (k,)
-        Power-law noise exponent identified at each tau (S_y ∝ f^alpha).
+        Power-law noise exponent at each tau (S_y ∝ f^alpha): identified where
+        ``identified`` is True, else the type whose (smallest) EDF was used.
     n_terms : ndarray of int, shape (k,)
         Number of difference terms that entered each point.
     unit : str
         Unit of ``dev``.
     level : float
         Confidence level of the bounds.
+    identified : ndarray of bool, shape (k,), optional
+        True where the noise type was identified (lag-1 method, enough cluster
+        averages); False where too few averages remained and the conservative
+        EDF was used. None (curves built elsewhere): not recorded.
     """
 
     kind: str
@@ -241,6 +247,7 @@ class AllanCurve:
     n_terms: np.ndarray
     unit: str
     level: float = 0.95
+    identified: np.ndarray | None = None
 
 
 @dataclass(frozen=True)

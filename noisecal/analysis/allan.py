@@ -260,15 +260,21 @@ def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
     noise_from : AllanCurve, optional
         Take each tau's noise type from the nearest tau (log scale) of this
         curve instead of identifying it again: the type belongs to the data,
-        not to the estimator, and identification is a full pass per tau.
+        not to the estimator, and identification is a full pass per tau. Only
+        where that point was identified and this tau itself has enough cluster
+        averages for identification; elsewhere the conservative EDF is used.
 
     Returns
     -------
     AllanCurve
-        Points with no term are dropped.
+        Points with no term are dropped. ``identified`` says where the lag-1
+        method named the noise type; elsewhere (fewer than ``MIN_BLOCKS``
+        averages) ``edf`` is the smallest EDF over the noise types the estimator
+        admits and ``alpha`` the type that gives it.
     """
     from ..types import AllanCurve
-    from .edf import alpha_from_slope, chi2_interval, clamp_alpha, edf, noise_id_lag1
+    from .edf import (MIN_BLOCKS, chi2_interval, clamp_alpha, conservative_edf,
+                      noise_id_lag1, pooled_edf)
 
     segments = segments or [(0, y.shape[0])]
     lengths = np.array([b - a for a, b in segments])
@@ -285,33 +291,29 @@ def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
     y_long = y[longest[0]:longest[1]]
     if noise_from is not None:
         near = np.abs(np.log(taus)[:, None] - np.log(noise_from.taus)[None, :]).argmin(axis=1)
-        ident = [int(noise_from.alpha[k]) for k in near]
+        src_ok = (np.ones(noise_from.taus.shape[0], dtype=bool)
+                  if noise_from.identified is None else np.asarray(noise_from.identified))
+        # Borrow only an identified type, and only where this tau could have been
+        # identified itself: never carry a type across to a few-cluster tau.
+        ident = [int(noise_from.alpha[k]) if src_ok[k] and y_long.shape[0] // mj >= MIN_BLOCKS
+                 else None for k, mj in zip(near, m)]
     else:
         ident = [noise_id_lag1(y_long, int(mj), dmax=d) for mj in m]
-    known = [j for j, a in enumerate(ident) if a is not None]
+    identified = np.array([a is not None for a in ident], dtype=bool)
     alphas = np.empty(m.shape[0], dtype=np.int64)
-    for j, a in enumerate(ident):
-        if a is not None:
-            alphas[j] = a
-        elif known:
-            # Too few averages for the lag-1 method: keep the nearest identified type.
-            alphas[j] = ident[min(known, key=lambda k: abs(k - j))]
-        else:
-            alphas[j] = alpha_from_slope(taus, dev, j, d)
-    alphas = np.array([clamp_alpha(a, d) for a in alphas], dtype=np.int64)
-    overlapping = kind in ("oadev", "ohdev", "mdev", "totdev")
     nu = np.empty(m.shape[0])
+    term_kind = "oadev" if kind == "totdev" else kind
     for j, mj in enumerate(m):
-        weights, inv = 0.0, 0.0
-        for seg_len in lengths:
-            c = term_count(int(seg_len) + 1, int(mj), "oadev" if kind == "totdev" else kind)
-            if c == 0:
-                continue
-            v = edf(int(alphas[j]), d, int(mj), int(seg_len) + 1, overlapping, kind == "mdev")
-            weights += c
-            inv += c * c / v
+        counts = np.array([term_count(int(n) + 1, int(mj), term_kind) for n in lengths])
+        used = counts > 0
+        runs, weights = lengths[used] + 1, counts[used].astype(np.float64)
         # Pooled segments: EDF of a count-weighted mean of independent estimates.
-        nu[j] = weights * weights / inv
+        if identified[j]:
+            alphas[j] = clamp_alpha(int(ident[j]), d)
+            nu[j] = pooled_edf(int(alphas[j]), kind, int(mj), runs, weights)
+        else:
+            alphas[j], nu[j] = conservative_edf(kind, int(mj), runs, weights)
     lower, upper = chi2_interval(dev, nu, level)
     return AllanCurve(kind=kind, taus=taus, m=m, dev=dev, lower=lower, upper=upper,
-                      edf=nu, alpha=alphas, n_terms=n_terms, unit=unit, level=level)
+                      edf=nu, alpha=alphas, n_terms=n_terms, unit=unit, level=level,
+                      identified=identified)

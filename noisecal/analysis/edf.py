@@ -7,7 +7,8 @@ autocorrelation", 18th European Frequency and Time Forum (2004).
 C. A. Greenhall, W. J. Riley, "Uncertainty of stability variances based on
 finite differences", 35th PTTI Meeting (2003) — computed by
 ``allantools.edf_greenhall``.
-NIST SP 1065 (2008), section 5.3: chi-square confidence intervals.
+NIST SP 1065 (2008), section 5.3: chi-square confidence intervals; section 5.6 and
+Table 7: few-cluster noise identification and the total variance EDF.
 """
 
 from __future__ import annotations
@@ -67,23 +68,34 @@ def noise_id_lag1(y: np.ndarray, m: int, dmax: int = 2) -> int | None:
         d += 1
 
 
-def alpha_from_slope(taus: np.ndarray, dev: np.ndarray, j: int, d: int) -> int:
-    """Noise exponent from the local log–log slope of a deviation curve.
-
-    For Allan forms sigma² ∝ tau^mu with mu = −alpha − 1 (−3 < alpha < 1);
-    used where too few averages remain for the lag-1 method.
-    """
-    lo, hi = max(0, j - 2), min(len(taus) - 1, j + 2)
-    ok = np.isfinite(dev[lo:hi + 1]) & (dev[lo:hi + 1] > 0)
-    if hi <= lo or ok.sum() < 2:
-        return 0
-    mu = np.polyfit(np.log(taus[lo:hi + 1][ok]), 2.0 * np.log(dev[lo:hi + 1][ok]), 1)[0]
-    return int(np.clip(round(-mu - 1.0), 2 - 2 * d, 2))
+ALPHA_MIN_EDF = -3
+"""Lowest alpha the Greenhall–Riley coefficient table covers (allantools'
+``greenhall_table2`` stops at alpha = -3, flicker walk FM); Hadamard random run
+(alpha = -4) is given the alpha = -3 EDF."""
 
 
 def clamp_alpha(alpha: int, d: int) -> int:
-    """Keep alpha where the d-th difference variance converges (alpha + 2d > 1)."""
-    return int(np.clip(alpha, 2 - 2 * d, 2))
+    """Keep alpha where the d-th difference variance converges (alpha + 2d > 1) and the
+    Greenhall–Riley algorithm has coefficients (alpha >= -3)."""
+    return int(np.clip(alpha, max(2 - 2 * d, ALPHA_MIN_EDF), 2))
+
+
+def candidate_alphas(d: int) -> np.ndarray:
+    """Noise exponents an EDF is taken over when the type cannot be identified.
+
+    Parameters
+    ----------
+    d : int
+        Difference order (2 Allan forms and total, 3 Hadamard).
+
+    Returns
+    -------
+    alphas : ndarray of int, shape (k,)
+        White PM (2) down to the lowest exponent at which the estimator converges
+        and the Greenhall–Riley coefficients exist: −2 (random-walk FM) for Allan
+        forms, −3 (flicker walk FM) for Hadamard forms.
+    """
+    return np.arange(2, max(2 - 2 * d, ALPHA_MIN_EDF) - 1, -1)
 
 
 def edf(alpha: int, d: int, m: int, n_phase: int, overlapping: bool, modified: bool) -> float:
@@ -113,6 +125,139 @@ def edf(alpha: int, d: int, m: int, n_phase: int, overlapping: bool, modified: b
     if not np.isfinite(value) or value <= 0:
         value = max(1.0, (n_phase - 1) / m - (d - 1))
     return value
+
+
+_TOTVAR_TABLE = {0: (1.50, 0.0), -1: (1.17, 0.22), -2: (0.93, 0.36)}
+"""NIST SP 1065 (2008) Table 7: TOTVAR EDF = b·T/tau − c for white, flicker and
+random-walk FM (Howe & Greenhall)."""
+
+
+def edf_total(alpha: int, m: int, n_phase: int) -> float:
+    """Equivalent degrees of freedom of the total variance for one contiguous run.
+
+    Parameters
+    ----------
+    alpha : int
+        Noise exponent, clamped to 2 … −2.
+    m : int
+        Averaging factor.
+    n_phase : int
+        Phase points in the run (rate samples + 1); T/tau = (n_phase − 1)/m.
+
+    Returns
+    -------
+    nu : float
+        b·T/tau − c (NIST SP 1065 Table 7) for alpha = 0, −1, −2. For white and
+        flicker PM (alpha = 2, 1), where the table has no entry, the simple AVAR
+        approximations of SP 1065 Table 5 with N phase points, as the Stable32
+        total-deviation tables do. At least 1.
+
+    References
+    ----------
+    D. A. Howe, C. A. Greenhall, "Total variance: a progress report on a new frequency
+    stability characterization", 29th PTTI Meeting (1997).
+    W. J. Riley, NIST SP 1065 (2008), Tables 5 and 7.
+    """
+    alpha = int(np.clip(alpha, -2, 2))
+    n = float(n_phase)
+    if alpha in _TOTVAR_TABLE:
+        b, c = _TOTVAR_TABLE[alpha]
+        value = b * (n - 1.0) / m - c
+    elif alpha == 2:
+        value = (n + 1.0) * (n - 2.0 * m) / (2.0 * (n - m))
+    else:
+        a = (n - 1.0) / (2.0 * m)
+        b = (2.0 * m + 1.0) * (n - 1.0) / 4.0
+        value = float(np.exp(np.sqrt(max(np.log(a), 0.0) * np.log(b))))
+    return max(1.0, float(value))
+
+
+def estimator_edf(alpha: int, kind: str, m: int, n_phase: int) -> float:
+    """EDF of one contiguous run for the estimator ``kind`` and noise exponent alpha.
+
+    Parameters
+    ----------
+    alpha : int
+        Noise exponent.
+    kind : str
+        ``"adev"``, ``"oadev"``, ``"mdev"``, ``"hdev"``, ``"ohdev"`` or ``"totdev"``.
+    m : int
+        Averaging factor.
+    n_phase : int
+        Phase points in the run.
+    """
+    if kind == "totdev":
+        return edf_total(alpha, m, n_phase)
+    d = 3 if kind in ("hdev", "ohdev") else 2
+    return edf(alpha, d, m, n_phase, kind in ("oadev", "ohdev", "mdev"), kind == "mdev")
+
+
+def conservative_edf(kind: str, m: int, run_lengths: np.ndarray,
+                     weights: np.ndarray) -> tuple[int, float]:
+    """Smallest pooled EDF over the noise types the estimator admits.
+
+    Used where the noise type cannot be identified (fewer than ``MIN_BLOCKS``
+    cluster averages): the interval is then valid whichever power-law type the
+    data hold, instead of borrowing a type identified at another tau.
+
+    Parameters
+    ----------
+    kind : str
+        Estimator, see :func:`estimator_edf`.
+    m : int
+        Averaging factor.
+    run_lengths : ndarray of int, shape (s,)
+        Phase points of each contiguous run that contributes terms.
+    weights : ndarray, shape (s,)
+        Terms each run contributes.
+
+    Returns
+    -------
+    alpha : int
+        The exponent that gives the smallest EDF (usually random-walk FM, −2,
+        or −3 for Hadamard forms).
+    nu : float
+        That EDF.
+
+    References
+    ----------
+    NIST SP 1065 (2008), section 5.6: noise identification needs enough averages;
+    C. A. Greenhall, W. J. Riley (2003) for the EDF of each type.
+    """
+    d = 3 if kind in ("hdev", "ohdev") else 2
+    best_alpha, best = 0, np.inf
+    for a in candidate_alphas(d):
+        nu = pooled_edf(int(a), kind, m, run_lengths, weights)
+        if nu < best:
+            best_alpha, best = int(a), nu
+    return best_alpha, float(best)
+
+
+def pooled_edf(alpha: int, kind: str, m: int, run_lengths: np.ndarray,
+               weights: np.ndarray) -> float:
+    """EDF of a count-weighted mean of independent per-run variance estimates.
+
+    Parameters
+    ----------
+    alpha : int
+        Noise exponent.
+    kind : str
+        Estimator.
+    m : int
+        Averaging factor.
+    run_lengths : ndarray of int, shape (s,)
+        Phase points of each run.
+    weights : ndarray, shape (s,)
+        Terms of each run (the weights of the mean).
+
+    Returns
+    -------
+    nu : float
+        (Σw)² / Σ(w²/ν_i): a weighted mean of independent scaled chi-squares.
+    """
+    inv = sum(w * w / estimator_edf(alpha, kind, m, int(n))
+              for n, w in zip(run_lengths, weights))
+    return float(np.sum(weights) ** 2 / inv)
 
 
 def chi2_interval(dev: np.ndarray, nu: np.ndarray, level: float = 0.95) -> tuple[np.ndarray, np.ndarray]:

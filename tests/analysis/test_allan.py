@@ -89,7 +89,10 @@ def test_interval_coverage_white_noise():
     """Chi-square interval with Greenhall–Riley EDF (NIST SP 1065 §5.3;
     allantools.edf_greenhall) covers the true ADEV of white noise about 95 % of
     the time over 600 seeded runs. m = 1 is left out: there allantools' EDF
-    (3205 for N = 4097) exceeds the exact 2(N−1)/3 = 2731 and coverage is 92.5 %."""
+    (3205 for N = 4097) exceeds the exact 2(N−1)/3 = 2731 and coverage is 92.5 %.
+    At m = 64 and 256 (64 and 16 averages, too few to identify the type) the EDF is
+    the smallest over the noise types, so coverage is only required to be at least
+    nominal there (measured 98.7 %)."""
     m = np.array([2, 8, 64, 256])
     hits = np.zeros(m.shape[0])
     runs = 600
@@ -99,7 +102,11 @@ def test_interval_coverage_white_noise():
         truth = 1.0 / np.sqrt(c.m)
         hits += (c.lower <= truth) & (truth <= c.upper)
     coverage = hits / runs
-    assert np.all((coverage > 0.925) & (coverage < 0.975)), coverage
+    print("coverage at m =", m, ":", coverage)
+    identified = c.identified
+    assert np.array_equal(identified, [True, True, False, False])
+    assert np.all((coverage[identified] > 0.925) & (coverage[identified] < 0.975)), coverage
+    assert np.all(coverage[~identified] > 0.925), coverage
 
 
 @pytest.mark.parametrize("alpha, make", [
