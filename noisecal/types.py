@@ -264,12 +264,19 @@ class PsdCheck:
         Equivalent white-noise coefficient N (unit/√Hz) from the band used.
     band_hz : tuple of float
         Frequency band the level was read from.
+    roll_off_hz : float or None
+        Where the PSD falls to half the white level and stays below (the
+        sensor's bandwidth); None when it does not below Nyquist.
+    lines : tuple of (float, float)
+        Narrow peaks: (frequency Hz, sinusoid amplitude in the channel unit).
     """
 
     freq: np.ndarray
     psd: np.ndarray
     white_noise: float
     band_hz: tuple[float, float]
+    roll_off_hz: float | None = None
+    lines: tuple = ()
 
 
 @dataclass(frozen=True)
@@ -293,6 +300,12 @@ class ChannelModel:
         Fitted variance coefficients [Q², N², B², K², R²] (SI) for plotting.
     seed : int
         Seed of the bootstrap that gave the intervals.
+    fit : TermFit, optional
+        The selection, the fitted taus and the bootstrap behind ``terms``.
+    check : ModelCheck, optional
+        Whether the terms follow the curve.
+    turn_on : TurnOnBias, optional
+        The record's mean with its interval and a P0 bias std.
     """
 
     channel: str
@@ -302,6 +315,9 @@ class ChannelModel:
     curve: AllanCurve
     coefficients: np.ndarray
     seed: int
+    fit: object = None
+    check: object = None
+    turn_on: object = None
 
 
 @dataclass(frozen=True)

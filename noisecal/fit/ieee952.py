@@ -1,15 +1,20 @@
 """IEEE Std 952 noise terms fitted jointly to an Allan variance curve.
 
 The Allan variance of the five terms is linear in their squared coefficients
-c = [Q², N², B², K², R²] (see :func:`noisecal.fit.simulate.basis`). They are
-fitted by non-negative least squares, each point weighted by its standard
-error sqrt(2/ν)·AVAR with the variance taken from the model itself (three
-reweighting passes), so no term region has to be picked by hand: a term takes
-the taus where it explains the curve. Intervals come from a parametric
-bootstrap of the whole procedure; a term that the bootstrap cannot keep away
-from zero, or without which the curve fits about as well (random walk and
-ramp can stand in for each other at the longest taus), is reported as an
-upper bound instead of a number.
+c = [Q², N², B², K², R²] (see :func:`noisecal.fit.simulate.basis`). Which
+terms the curve needs is decided once, as a model selection over every subset
+of terms (:func:`select_structure`: weighted NNLS per subset, chi-square
+deviance plus a per-term penalty calibrated for correlated overlapping
+points); the intervals then come from a parametric bootstrap *within* that
+structure, so a needed term is never turned into a bound because a collinear
+term (random walk and ramp at the longest taus) stands in for it in some
+replicates. Terms left out are upper bounds.
+
+Real sensors low-pass their output before sampling, which pulls the curve
+below N²/τ at short taus. Beyond a few filter time constants the deficit is a
+quantization-shaped term of negative sign (:func:`basis6`, the band-limit
+column); closer in, the curve follows no power law, and those taus are left
+out of the fit (:func:`usable_from`), which says so.
 
 References
 ----------
@@ -36,14 +41,6 @@ FULL_SIM_MAX = 2 ** 16
 """Longest record simulated sample for sample; longer ones are simulated decimated."""
 
 REWEIGHT_PASSES = 3
-
-MIN_SHARE = 0.2
-"""A term must explain this fraction of the Allan variance at some tau to stay in the model.
-
-Terms below it are set to zero and the rest refitted; without this pruning the
-bootstrap would simulate spurious small terms and widen every interval.
-"""
-
 
 def weighted_nnls(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
                   passes: int = REWEIGHT_PASSES) -> np.ndarray:
@@ -78,31 +75,216 @@ def weighted_nnls(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
     return c
 
 
-def fit_model(A: np.ndarray, avar: np.ndarray, nu: np.ndarray) -> np.ndarray:
-    """The fitting procedure applied to data and to every bootstrap replicate.
+COLUMNS = TERM_NAMES + ("band_limit",)
+"""Columns of the fit: the five terms and the band-limit correction (−3/τ² per unit)."""
 
-    Weighted NNLS over all terms, then terms that never reach ``MIN_SHARE`` of
-    the model are dropped and the others refitted.
+PENALTY = 6.0
+"""Deviance a term must save to enter the model (see :func:`select_structure`)."""
+
+NEAR_TIE = 2.0
+"""Criterion difference below which another structure is reported as a near tie."""
+
+MIN_POINTS = 5
+"""Fewest Allan points the fit keeps when short taus are left out."""
+
+
+def basis6(taus: np.ndarray) -> np.ndarray:
+    """The five term columns of :func:`basis` and the band-limit column −3/τ².
+
+    White noise through a low-pass of equivalent first-order time constant T
+    has, once τ is several T, the Allan variance N²/τ − 3N²T/(2τ²): a
+    quantization-shaped term of negative sign (common practice, no source;
+    checked by simulation in tests/fit/test_band_limit.py). Its coefficient
+    c_L = N²T/2 gives T = 2c_L/N². The quantization and band-limit columns are
+    never in one model.
+
+    Parameters
+    ----------
+    taus : ndarray, shape (k,)
+        Averaging times, s.
+
+    Returns
+    -------
+    A : ndarray, shape (k, 6)
+    """
+    A = basis(taus)
+    return np.column_stack([A, -A[:, 0]])
+
+
+def structures() -> list[tuple[int, ...]]:
+    """Every candidate set of columns of :data:`COLUMNS`.
+
+    Any non-empty subset of the five terms, and each subset holding
+    quantization and white noise again with the band-limit column in place of
+    quantization.
+    """
+    out = []
+    for bits in range(1, 1 << 5):
+        cols = tuple(i for i in range(5) if bits >> i & 1)
+        out.append(cols)
+        if 0 in cols and 1 in cols:
+            out.append(tuple(sorted(set(cols) - {0} | {5})))
+    return out
+
+
+def fit_structure(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
+                  cols: tuple[int, ...]) -> np.ndarray:
+    """Weighted NNLS on the columns ``cols`` of ``A``, zero elsewhere.
 
     Parameters
     ----------
     A : ndarray, shape (k, p)
-    avar : ndarray, shape (k,)
-    nu : ndarray, shape (k,)
+    avar, nu : ndarray, shape (k,)
+    cols : tuple of int
 
     Returns
     -------
     c : ndarray, shape (p,)
     """
-    c = weighted_nnls(A, avar, nu)
-    model = A @ c
-    share = (A * c) / np.where(model > 0, model, 1.0)[:, None]
-    keep = share.max(axis=0) >= MIN_SHARE
-    if keep.all() or not keep.any():
-        return c
-    out = np.zeros_like(c)
-    out[keep] = weighted_nnls(A[:, keep], avar, nu)
-    return out
+    c = np.zeros(A.shape[1])
+    idx = list(cols)
+    c[idx] = weighted_nnls(A[:, idx], avar, nu)
+    return c
+
+
+def signed(c6: np.ndarray) -> np.ndarray:
+    """Five-term coefficients with the band-limit column folded into a negative Q².
+
+    Parameters
+    ----------
+    c6 : ndarray, shape (..., 6)
+
+    Returns
+    -------
+    ndarray, shape (..., 5)
+    """
+    c6 = np.asarray(c6, dtype=np.float64)
+    c = c6[..., :5].copy()
+    c[..., 0] -= c6[..., 5]
+    return c
+
+
+@dataclass(frozen=True)
+class Selection:
+    """The model structure chosen for a curve.
+
+    Attributes
+    ----------
+    cols : tuple of int
+        Chosen columns of :data:`COLUMNS`.
+    c6 : ndarray, shape (6,)
+        Coefficients of the chosen model.
+    criterion : float
+        Its deviance plus ``PENALTY`` per column.
+    ranked : list of (tuple of int, float)
+        Every structure whose fit keeps all its columns, with its criterion,
+        best first.
+    """
+
+    cols: tuple
+    c6: np.ndarray
+    criterion: float
+    ranked: list
+
+    def near_ties(self, margin: float = NEAR_TIE) -> list[str]:
+        """Plain sentences for structures that score within ``margin`` of the chosen one."""
+        chosen = set(self.cols)
+        out = []
+        for cols, crit in self.ranked[1:]:
+            if crit - self.criterion >= margin:
+                break
+            other = set(cols)
+            gained, lost = sorted(other - chosen), sorted(chosen - other)
+            if gained and lost:
+                what = (f"{' + '.join(COLUMNS[i] for i in gained)} in place of "
+                        f"{' + '.join(COLUMNS[i] for i in lost)}")
+            elif gained:
+                what = f"adding {' + '.join(COLUMNS[i] for i in gained)}"
+            else:
+                what = f"without {' + '.join(COLUMNS[i] for i in lost)}"
+            out.append(f"{what} fits almost as well (criterion {crit - self.criterion:+.2f} "
+                       f"against the chosen model; a term enters only if it saves "
+                       f"{PENALTY:g} of deviance)")
+        return out
+
+
+def select_structure(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
+                     penalty: float = PENALTY) -> Selection:
+    """The structure of least deviance plus ``penalty`` per term.
+
+    Each structure of :func:`structures` is fitted by weighted NNLS and
+    scored by the chi-square deviance of :func:`misfit`; a structure whose fit
+    sets one of its own columns to zero is the smaller structure and is
+    skipped. The deviance treats the points as independent, while overlapping
+    Allan points are positively correlated, which inflates the deviance a
+    spurious term saves: the penalty is therefore set by simulation rather than
+    taken from a criterion for independent data (AIC's 2, the chi-square
+    test's 3.84). tests/fit/test_selection.py measures the false-resolution
+    rate of absent terms and the resolution power of present ones.
+
+    Parameters
+    ----------
+    A : ndarray, shape (k, 6)
+        :func:`basis6` at the fitted taus.
+    avar, nu : ndarray, shape (k,)
+        Allan variance and EDF of each point.
+    penalty : float
+
+    Returns
+    -------
+    Selection
+    """
+    ranked, fits = [], {}
+    for cols in structures():
+        c = fit_structure(A, avar, nu, cols)
+        if np.any(c[list(cols)] <= 0):
+            continue
+        fits[cols] = c
+        ranked.append((cols, misfit(A, avar, nu, c) + penalty * len(cols)))
+    if not ranked:  # cannot happen for a positive curve; kept for a clear fallback
+        c = np.zeros(A.shape[1])
+        c[1] = float(np.median(avar / A[:, 1]))
+        return Selection((1,), c, misfit(A, avar, nu, c), [((1,), misfit(A, avar, nu, c))])
+    ranked.sort(key=lambda r: r[1])
+    best = ranked[0][0]
+    return Selection(best, fits[best], ranked[0][1], ranked)
+
+
+def usable_from(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, lower: np.ndarray,
+                upper: np.ndarray) -> tuple[int, Selection]:
+    """First Allan point from which the term model holds, and the selection there.
+
+    Starting at the shortest tau, the structure is selected on the points
+    from index s on; s is accepted when the model lies inside the 95 %
+    intervals of its first two points. A sensor's low-pass makes the shortest
+    points fall below any sum of the terms (the band-limit column follows the
+    deficit only beyond a few filter time constants), so they are left out
+    until the curve is a sum of power laws again. At least ``MIN_POINTS``
+    points are kept.
+
+    Parameters
+    ----------
+    A : ndarray, shape (k, 6)
+    avar, nu, lower, upper : ndarray, shape (k,)
+        Allan variance, EDF and the deviation's interval bounds.
+
+    Returns
+    -------
+    start : int
+    selection : Selection
+        Selected on the points ``start:``.
+    """
+    k = avar.shape[0]
+    first = None
+    for s in range(max(1, k - MIN_POINTS + 1)):
+        sel = select_structure(A[s:], avar[s:], nu[s:])
+        first = first or (s, sel)
+        model = A[s:s + 2] @ sel.c6
+        if np.all((model >= lower[s:s + 2] ** 2) & (model <= upper[s:s + 2] ** 2)):
+            return s, sel
+    # No start makes the model hold at its first points: keep every point and let
+    # the model check say so.
+    return first
 
 
 @dataclass(frozen=True)
@@ -112,18 +294,38 @@ class TermFit:
     Attributes
     ----------
     c2 : ndarray, shape (5,)
-        Fitted [Q², N², B², K², R²], SI.
+        Fitted [Q², N², B², K², R²], SI. Q² is negative when the band-limit
+        column was chosen (−c_L, see :func:`basis6`).
     replicates : ndarray, shape (reps, 5)
-        The same fit on each bootstrap replicate.
+        The same fit on each bootstrap replicate (same structure).
     replicate_avar : ndarray, shape (reps, k)
         The replicate curves (Allan variance at the fit taus).
     seed : int
+    used : ndarray of bool, shape (k,)
+        Points of the curve the terms were fitted to.
+    selection : Selection
+        The chosen structure and its competitors.
+    deviance : float
+        Deviance of the fit over the used points.
+    replicate_deviance : ndarray, shape (reps,)
+        The same on each replicate: the reference distribution of the model check.
     """
 
     c2: np.ndarray
     replicates: np.ndarray
     replicate_avar: np.ndarray
     seed: int
+    used: np.ndarray = None
+    selection: Selection = None
+    deviance: float = float("nan")
+    replicate_deviance: np.ndarray = None
+
+    @property
+    def band_limit_time(self) -> float:
+        """Equivalent first-order time constant of the sensor's low-pass, s (0 if none)."""
+        if self.c2[0] >= 0 or self.c2[1] <= 0:
+            return 0.0
+        return float(-2.0 * self.c2[0] / self.c2[1])
 
 
 def replicate_curves(simulate, expected, period: float, m: np.ndarray,
@@ -189,9 +391,23 @@ def replicate_curves(simulate, expected, period: float, m: np.ndarray,
     return np.maximum(out, 0.0)
 
 
+def one_pole(y: np.ndarray, period: float, time_constant: float) -> np.ndarray:
+    """First-order low-pass of DC gain 1 whose Allan deficit is 3N²T/(2τ²), T = ``time_constant``.
+
+    For y_k = a·y_(k−1) + (1 − a)·w_k the variance of a sum of m samples is
+    σ²(m − 2a/(1 − a²)) plus terms in a^m (from the AR(1) autocovariance
+    σ²(1 − a)a^|j|/(1 + a)), so a solves T(1 − a²) = 2a·period; for T ≫
+    period, a ≈ exp(−period/T).
+    """
+    from scipy.signal import lfilter
+
+    a = (np.hypot(period, time_constant) - period) / time_constant
+    return lfilter([1.0 - a], [1.0, -a], y)
+
+
 def fit_terms(curve: AllanCurve, period: float, segments: list[tuple[int, int]],
               reps: int = 200, seed: int = 0, progress=None) -> TermFit:
-    """Fit the five terms to an overlapping-ADEV curve and bootstrap the fit.
+    """Select the terms an overlapping-ADEV curve needs, fit them and bootstrap the fit.
 
     Parameters
     ----------
@@ -211,13 +427,27 @@ def fit_terms(curve: AllanCurve, period: float, segments: list[tuple[int, int]],
     -------
     TermFit
     """
-    A = basis(curve.taus)
-    c2 = fit_model(A, curve.dev ** 2, curve.edf)
-    sims = replicate_curves(lambda p, n, rng: simulate_rate(c2, p, n, rng),
-                            lambda t: basis(t) @ c2, period, curve.m, segments, reps,
-                            seed, progress)
-    boot = np.array([fit_model(A, s, curve.edf) for s in sims])
-    return TermFit(c2=c2, replicates=boot, replicate_avar=sims, seed=seed)
+    A = basis6(curve.taus)
+    avar, nu = curve.dev ** 2, curve.edf
+    start, sel = usable_from(A, avar, nu, curve.lower, curve.upper)
+    used = np.arange(avar.shape[0]) >= start
+    c2 = signed(sel.c6)
+    truth = np.maximum(c2, 0.0)
+    lag = 2.0 * sel.c6[5] / sel.c6[1] if sel.c6[5] > 0 else 0.0
+
+    def simulate(p, n, rng):
+        y = simulate_rate(truth, p, n, rng)
+        # Replicates carry the fitted low-pass, so the band-limit column sees its own kind.
+        return one_pole(y, p, lag) if lag > 0 else y
+
+    sims = replicate_curves(simulate, lambda t: basis6(t) @ sel.c6, period, curve.m,
+                            segments, reps, seed, progress)
+    Au, nuu = A[used], nu[used]
+    boot6 = np.array([fit_structure(Au, s[used], nuu, sel.cols) for s in sims])
+    dev_rep = np.array([misfit(Au, s[used], nuu, b) for s, b in zip(sims, boot6)])
+    return TermFit(c2=c2, replicates=signed(boot6), replicate_avar=sims, seed=seed,
+                   used=used, selection=sel, deviance=misfit(Au, avar[used], nuu, sel.c6),
+                   replicate_deviance=dev_rep)
 
 
 def harrell_davis(values: np.ndarray, probs) -> np.ndarray:
@@ -259,10 +489,6 @@ def pivot_interval(estimate: float, replicates: np.ndarray, level: float = 0.95)
     return estimate * estimate / q_hi, estimate * estimate / q_lo
 
 
-NEEDED = 3.84
-"""Deviance increase (chi-square, 1 degree of freedom, 95 %) that makes a term needed."""
-
-
 def misfit(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, c: np.ndarray) -> float:
     """Deviance of a model for chi-square distributed points (AVAR·ν/σ² ~ χ²(ν)).
 
@@ -276,65 +502,80 @@ def misfit(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, c: np.ndarray) -> fl
     return float(np.sum(nu * (ratio - 1.0 - np.log(ratio))))
 
 
-def needed(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, c: np.ndarray, column: int) -> bool:
-    """Whether the curve needs term ``column``: refitting without it must raise the
-    deviance by at least ``NEEDED`` (a likelihood-ratio test; the points are
-    correlated, so it is a guard rather than an exact 5 % test). Random walk and ramp can stand in for each
-    other at the longest taus; then neither is needed and both become bounds."""
-    keep = np.arange(A.shape[1]) != column
-    without = np.zeros_like(c)
-    without[keep] = fit_model(A[:, keep], avar, nu)
-    return misfit(A, avar, nu, without) - misfit(A, avar, nu, c) >= NEEDED
-
-
-def term_bound(curve: AllanCurve, column: int, level: float = 0.95) -> tuple[float, float]:
+def term_bound(curve: AllanCurve, column: int, level: float = 0.95,
+               used: np.ndarray | None = None) -> tuple[float, float]:
     """Upper bound of one squared coefficient and the tau that sets it.
 
     The term alone must stay below the curve's upper confidence limit at every
-    tau; the per-point limits are taken at 1 − (1 − level)/k (Bonferroni over
-    the k points), so the bound holds with at least ``level`` overall.
+    used tau; the per-point limits are taken at 1 − (1 − level)/k (Bonferroni
+    over the k points), so the bound holds with at least ``level`` overall.
+    Taus left out of the fit (a band limit) do not set bounds: the low-pass
+    lowers the curve there below what the terms alone would give.
     """
-    k = curve.taus.shape[0]
-    a = (1.0 - level) / k
-    avar_hi = curve.dev ** 2 * curve.edf / stats.chi2.ppf(a, curve.edf)
-    per = avar_hi / basis(curve.taus)[:, column]
+    used = np.ones(curve.taus.shape[0], bool) if used is None else used
+    taus, dev, nu = curve.taus[used], curve.dev[used], curve.edf[used]
+    a = (1.0 - level) / taus.shape[0]
+    avar_hi = dev ** 2 * nu / stats.chi2.ppf(a, nu)
+    per = avar_hi / basis(taus)[:, column]
     j = int(np.argmin(per))
-    return float(per[j]), float(curve.taus[j])
+    return float(per[j]), float(taus[j])
+
+
+def selected_interval(estimate: float, replicates: np.ndarray, level: float = 0.95):
+    """Interval of a squared coefficient the selection kept.
+
+    The log pivot of :func:`pivot_interval` where the replicates keep the term
+    from zero; otherwise (a needed term that a collinear one can stand in for
+    in some replicates) the basic bootstrap interval on the square-root scale,
+    [2θ̂ − θ*_hi, 2θ̂ − θ*_lo] clipped at zero — Efron & Tibshirani (1993), §13.4.
+    """
+    ci = pivot_interval(estimate, replicates, level)
+    if ci is not None:
+        return ci, "log pivot"
+    a = 1.0 - level
+    root = np.sqrt(np.maximum(replicates, 0.0))
+    lo, hi = harrell_davis(root, [a / 2.0, 1.0 - a / 2.0])
+    theta = np.sqrt(estimate)
+    return (max(0.0, 2 * theta - hi) ** 2, (2 * theta - lo) ** 2), "basic (square-root scale)"
 
 
 def term_estimates(fit: TermFit, curve: AllanCurve, level: float = 0.95) -> dict:
-    """Estimates (value, 95 % interval, unit, constraining taus) of the five terms.
+    """Estimates (value, interval, unit, constraining taus) of the five terms.
 
     Returns
     -------
     dict of str to Estimate
-        Keyed by ``TERM_NAMES``; unresolved terms are upper bounds.
+        Keyed by ``TERM_NAMES``; terms the selection left out are upper bounds.
     """
-    A = basis(curve.taus)
-    model = A @ fit.c2
+    used = fit.used
+    taus = curve.taus[used]
+    A = basis(taus)
+    model = A @ np.maximum(fit.c2, 0.0)
     out = {}
     reps = fit.replicates.shape[0]
-    avar = curve.dev ** 2
+    chosen = set(fit.selection.cols)
     for i, name in enumerate(TERM_NAMES):
         unit = derived_unit(curve.unit, name)
-        ci = pivot_interval(fit.c2[i], fit.replicates[:, i], level)
-        if ci is not None and not needed(A, avar, curve.edf, fit.c2, i):
-            ci = None
-        if ci is None:
-            bound, tau = term_bound(curve, i, level)
+        if i not in chosen:
+            bound, tau = term_bound(curve, i, level, used)
+            why = ("the band-limit term was chosen at short taus: the sensor's low-pass, "
+                   "under which quantization cannot be seen" if i == 0 and 5 in chosen
+                   else "the model selection leaves it out")
             out[name] = Estimate.bound(
                 np.sqrt(bound), unit, level=level, tau_range=(tau, tau),
-                method=("not resolved (the bootstrap does not keep it from zero, or the "
-                        "curve fits as well without it): the term alone stays under the "
-                        f"curve's {level:.0%} simultaneous chi-square limit at every tau"))
+                method=(f"not resolved ({why}): the term alone stays under the curve's "
+                        f"{level:.0%} simultaneous chi-square limit at every fitted tau"))
             continue
+        (lo, hi), how = selected_interval(fit.c2[i], fit.replicates[:, i], level)
         share = A[:, i] * fit.c2[i] / model
-        hold = curve.taus[share >= 0.5]
+        hold = taus[share >= 0.5]
         tau_range = ((float(hold.min()), float(hold.max())) if hold.size
-                     else (float(curve.taus[np.argmax(share)]),) * 2)
+                     else (float(taus[np.argmax(share)]),) * 2)
         out[name] = Estimate(
-            float(np.sqrt(fit.c2[i])), float(np.sqrt(ci[0])), float(np.sqrt(ci[1])), unit,
-            method=(f"weighted NNLS on overlapping AVAR; interval by parametric bootstrap "
-                    f"({reps} replicates, seed {fit.seed}), log pivot"),
+            float(np.sqrt(fit.c2[i])), float(np.sqrt(lo)), float(np.sqrt(hi)), unit,
+            method=(f"selected by deviance + {PENALTY:g} per term; weighted NNLS on "
+                    f"overlapping AVAR at tau >= {taus[0]:.3g} s; interval by parametric "
+                    f"bootstrap within the selected terms ({reps} replicates, seed "
+                    f"{fit.seed}), {how}"),
             level=level, tau_range=tau_range)
     return out

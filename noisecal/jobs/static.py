@@ -9,7 +9,7 @@ block and Allan plot, written atomically.
 from __future__ import annotations
 
 import datetime as _dt
-from dataclasses import dataclass
+from dataclasses import dataclass, fields, replace
 from pathlib import Path
 
 import numpy as np
@@ -23,10 +23,12 @@ from ..export.atomic import output_paths, write_text
 from ..export.plot import allan_figure
 from ..fit.discrete import filter_block
 from ..fit.gauss_markov import fit_gauss_markov
-from ..fit.ieee952 import fit_terms, term_estimates
+from ..fit.ieee952 import COLUMNS, PENALTY, basis6, fit_terms, term_estimates
+from ..fit.model_check import check_model
+from ..fit.turn_on import turn_on_bias
 from ..fit.simulate import TERM_NAMES
 from ..ingest import read_recording
-from ..types import ChannelModel, FilterBlock, Recording
+from ..types import AllanCurve, ChannelModel, FilterBlock, Recording
 from ..units import customary
 from .progress import StageBars, progress_bar
 
@@ -124,32 +126,65 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
         if np.ptp(rec.channel(name)) == 0:
             raise AnalysisError(f"{rec.source.path}, column {name!r}: the channel is "
                                 "constant; leave it out with --channels")
-    segments = rec.segments
-    longest = max(segments, key=lambda s: s[1] - s[0])
     models, dense, hadamard, psd = [], [], [], []
     with progress_bar(total=2 * reps * len(names), desc="bootstrap", quiet=quiet) as bar:
         for i, name in enumerate(names):
-            y = rec.channel(name)
-            unit = rec.unit_of(name)
-            bar.set_description(f"{name}: deviations")
-            curve = allan_curve(y, rec.period, unit, "oadev", "octave", segments)
-            dense.append(allan_curve(y, rec.period, unit, "oadev", "dense", segments,
-                                     noise_from=curve))
-            hadamard.append(allan_curve(y, rec.period, unit, "ohdev", "dense", segments,
-                                        noise_from=curve))
-            bar.set_description(f"{name}: bootstrap")
-            fit = fit_terms(curve, rec.period, segments, reps=reps, seed=seed + i,
-                            progress=bar.update)
-            models.append(ChannelModel(
-                channel=name, unit=unit, terms=term_estimates(fit, curve),
-                gauss_markov=fit_gauss_markov(curve, rec.period, segments, reps,
-                                              seed + 1000 + i, progress=bar.update),
-                curve=curve,
-                coefficients=fit.c2, seed=seed + i))
-            psd.append(white_level(y[longest[0]:longest[1]], rec.period))
+            out = _channel(rec, name, reps, seed + i, bar)
+            for acc, item in zip((models, dense, hadamard, psd), out):
+                acc.append(item)
     block = filter_block(models, step)
     sections = _sections(rec, models, psd, block, seed, reps, command)
     return StaticResult(rec, models, dense, hadamard, psd, block, sections)
+
+
+def _channel(rec: Recording, name: str, reps: int, seed: int, bar):
+    """Curves, terms, model check, spectrum and turn-on bias of one channel.
+
+    Returns
+    -------
+    (ChannelModel, AllanCurve, AllanCurve, PsdCheck)
+        The model, the dense ADEV and Hadamard curves, the spectrum check.
+    """
+    y = rec.channel(name)
+    unit = rec.unit_of(name)
+    segments = rec.segments
+    a, b = max(segments, key=lambda s: s[1] - s[0])
+    bar.set_description(f"{name}: deviations")
+    curve = allan_curve(y, rec.period, unit, "oadev", "octave", segments)
+    dense = allan_curve(y, rec.period, unit, "oadev", "dense", segments, noise_from=curve)
+    hadamard = allan_curve(y, rec.period, unit, "ohdev", "dense", segments, noise_from=curve)
+    bar.set_description(f"{name}: bootstrap")
+    fit = fit_terms(curve, rec.period, segments, reps=reps, seed=seed, progress=bar.update)
+    terms = term_estimates(fit, curve)
+    n = terms["white_noise"]
+    white = [t for t, share in _white_taus(fit, curve)]
+    # The spectrum is read where the white noise dominates the curve (f ≈ 1/(2τ)).
+    psd = white_level(y[a:b], rec.period, n.value or n.upper,
+                      f_from=0.5 / max(white) if white else None)
+    # The Gauss–Markov fit sees the same taus as the terms (a band limit is left out).
+    gm = fit_gauss_markov(_points(curve, fit.used), rec.period, segments, reps,
+                          seed + 1000, progress=bar.update)
+    model = ChannelModel(channel=name, unit=unit, terms=terms, gauss_markov=gm, curve=curve,
+                         coefficients=fit.c2, seed=seed, fit=fit,
+                         check=check_model(curve, fit, psd, rec.duration),
+                         turn_on=turn_on_bias(y, unit, fit.c2, rec.duration))
+    return model, dense, hadamard, psd
+
+
+def _white_taus(fit, curve):
+    """(tau, share) of the fitted points where white noise is at least half the model."""
+    A = basis6(curve.taus)
+    model = A @ fit.selection.c6
+    share = A[:, 1] * fit.selection.c6[1] / np.where(model > 0, model, np.inf)
+    return [(t, s) for t, s, u in zip(curve.taus, share, fit.used) if u and s >= 0.5]
+
+
+def _points(curve: AllanCurve, keep: np.ndarray) -> AllanCurve:
+    """The curve restricted to the points ``keep``."""
+    k = curve.taus.shape[0]
+    return replace(curve, **{f.name: getattr(curve, f.name)[keep] for f in fields(curve)
+                             if isinstance(getattr(curve, f.name), np.ndarray)
+                             and getattr(curve, f.name).shape == (k,)})
 
 
 def _sections(rec, models, psd, block, seed, reps, command) -> dict:
@@ -166,7 +201,29 @@ def _sections(rec, models, psd, block, seed, reps, command) -> dict:
             "white_noise": yaml_block.num(check.white_noise),
             "band_hz": [yaml_block.num(b) for b in check.band_hz],
             "ratio_to_allan": yaml_block.num(check.white_noise / (n.value or n.upper)),
+            "lines": [{"frequency_hz": yaml_block.num(f), "amplitude": yaml_block.num(a)}
+                      for f, a in check.lines[:5]],
         }
+        entry["bandwidth"] = _bandwidth(model, check, rec.period)
+        entry["model_selection"] = {
+            "terms": [COLUMNS[i] for i in model.fit.selection.cols],
+            "rule": f"least deviance + {PENALTY:g} per term over every subset of terms",
+            "near_ties": model.fit.selection.near_ties(),
+        }
+        mc = model.check
+        entry["model_check"] = {
+            "consistent": mc.consistent,
+            "p_value": yaml_block.num(mc.p_value),
+            "test": ("deviance of the fitted points against the bootstrap replicates' "
+                     "(overlapping points are correlated; the replicates carry it)"),
+            "points_fitted": mc.points,
+            "points_outside": len(mc.outside),
+            "outside": [{"tau_s": yaml_block.num(t), "data": side} for t, side in mc.outside],
+            **({"likely_cause": mc.cause, "advice": mc.advice} if not mc.consistent else {}),
+        }
+        tb = model.turn_on
+        entry["turn_on_bias"] = {"mean": yaml_block.estimate(tb.mean),
+                                 "p0_std": yaml_block.num(tb.p0_std), "note": tb.note}
         entry["bootstrap_seed"] = model.seed
         entry["allan_points"] = yaml_block.curve_table(model.curve)
         channels[model.channel] = entry
@@ -189,6 +246,34 @@ def _sections(rec, models, psd, block, seed, reps, command) -> dict:
     }
 
 
+def _bandwidth(model: ChannelModel, check, period: float) -> dict:
+    """Where the terms' model holds, the sensor's roll-off and what it means for dt."""
+    fit, curve = model.fit, model.curve
+    start = float(curve.taus[fit.used][0])
+    left = [float(t) for t in curve.taus[~fit.used]]
+    T = fit.band_limit_time
+    out = {
+        "fitted_from_tau_s": yaml_block.num(start),
+        "left_out_tau_s": [yaml_block.num(t) for t in left],
+        "roll_off_hz": yaml_block.num(check.roll_off_hz),
+        "time_constant_s": yaml_block.num(T) if T > 0 else None,
+        "sample_std": yaml_block.num(curve.dev[0]),
+    }
+    if any(side == "above" for _, side in model.check.left_out):
+        out["why"] = ("the shortest taus lie above the terms, which no low-pass does: "
+                      "see model_check")
+    elif left:
+        out["why"] = ("below these taus the curve falls under every sum of the terms: "
+                      "the sensor's own low-pass")
+    if T > 0 or check.roll_off_hz:
+        out["note"] = (
+            "white_noise is the low-frequency level: right for a filter whose dt is "
+            "well above the time constant. At dt near it, consecutive samples are "
+            "correlated; the per-sample std at the sample period is sample_std, below "
+            "white_noise/sqrt(period)")
+    return out
+
+
 def summary(result: StaticResult) -> str:
     """Plain-text table of the terms, SI and the trade's customary units."""
     rec = result.recording
@@ -205,6 +290,22 @@ def summary(result: StaticResult) -> str:
                 text = f"< {e.upper:.4g} {e.unit}  (not resolved: upper bound)"
                 cust = customary(e.upper, model.unit, name)
             lines.append(f"    {name:<17} {text}" + (f"  = {cust}" if cust else ""))
+        fit, mc = model.fit, model.check
+        if fit is not None and not fit.used.all() and mc is not None and mc.consistent:
+            lines.append(f"    fitted from tau = {model.curve.taus[fit.used][0]:.3g} s: shorter "
+                         "taus follow the sensor's low-pass, not the terms")
+        if mc is not None:
+            lines.append(f"    model check: {'consistent' if mc.consistent else 'NOT consistent'}"
+                         f" (p = {mc.p_value:.3g}, {len(mc.outside)} of {mc.points} points "
+                         "outside their 95 % interval)")
+            if not mc.consistent:
+                lines.append(f"    warning: {mc.cause}; {mc.advice}")
+        if fit is not None:
+            for tie in fit.selection.near_ties():
+                lines.append(f"    near tie: {tie}")
+        if model.turn_on is not None:
+            m = model.turn_on.mean
+            lines.append(f"    mean {m.value:.5g} (95 %: {m.lower:.5g} … {m.upper:.5g}) {m.unit}")
     for note in result.block.notes:
         lines.append(f"  note: {note}")
     return "\n".join(lines)
