@@ -223,3 +223,104 @@ def sum_squares(x: np.ndarray, m: np.ndarray, kind: str) -> tuple[np.ndarray, np
         sums[g] = s
         counts[g] = c
     return sums, counts
+
+
+# --- Batched bootstrap records ---------------------------------------------
+#
+# A parametric bootstrap simulates hundreds of short records of known terms and
+# takes the overlapping Allan variance of each. Done one record at a time in
+# numpy, each term costs a Python call, a temporary and a pass over memory;
+# here one compiled call simulates and reduces a whole chunk of records,
+# drawing normals from the numpy Generator it is given (numba's Generator
+# support reproduces numpy's streams), so every chunk keeps a seed.
+
+RECORD_PARAMS = ("period", "white_sd", "quant_sd", "step_sd", "ramp", "gm_phi",
+                 "gm_sd0", "gm_sdw", "pole")
+"""Order of the float parameters of one simulated record (see :func:`oavar_records`)."""
+
+
+@njit(cache=True, nogil=True)
+def _simulate_record(rng, y, p, extra):
+    period, white_sd, quant_sd, step_sd = p[0], p[1], p[2], p[3]
+    ramp, gm_phi, gm_sd0, gm_sdw, pole = p[4], p[5], p[6], p[7], p[8]
+    has_extra = extra.shape[0] > 0
+    prev_q = quant_sd * rng.standard_normal() if quant_sd > 0.0 else 0.0
+    g = gm_sd0 * rng.standard_normal() if gm_sd0 > 0.0 else 0.0
+    walk = 0.0
+    f = 0.0
+    for j in range(y.shape[0]):
+        v = 0.0
+        if white_sd > 0.0:
+            v += white_sd * rng.standard_normal()
+        if quant_sd > 0.0:
+            q = quant_sd * rng.standard_normal()
+            v += (q - prev_q) / period
+            prev_q = q
+        if step_sd > 0.0:
+            s = step_sd * rng.standard_normal()
+            v += walk + 0.5 * s
+            walk += s
+        if ramp != 0.0:
+            v += ramp * j
+        if gm_sd0 > 0.0:
+            if j > 0:
+                g = gm_phi * g + gm_sdw * rng.standard_normal()
+            v += g
+        if has_extra:
+            v += extra[j]
+        if pole > 0.0:
+            f = (1.0 - pole) * v + pole * f
+            v = f
+        y[j] = v
+
+
+@njit(cache=True, nogil=True)
+def oavar_records(rng, params, length, starts, stops, ms, extra, out):
+    """Simulate ``out.shape[0]`` records and write their overlapping AVAR into ``out``.
+
+    Parameters
+    ----------
+    rng : numpy.random.Generator
+        Source of every normal draw (one Generator per chunk, used by one thread).
+    params : ndarray, shape (9,)
+        ``RECORD_PARAMS``: sample period (s); standard deviations of the white
+        draw per sample (white noise merged with the random walk's
+        Brownian-bridge part, which is independent white), of the quantization
+        phase, of the random-walk step; ramp per sample; Gauss–Markov
+        coefficient, initial and driving standard deviations; pole of a
+        first-order low-pass of DC gain 1 (0: none).
+    length : int
+        Samples per record.
+    starts, stops : ndarray of int, shape (s,)
+        Contiguous runs (gap layout); terms never span two runs.
+    ms : ndarray of int, shape (k,)
+        Averaging factors.
+    extra : ndarray, shape (r, length) or (r, 0)
+        Samples added to each record (flicker noise made by FFT outside), or none.
+    out : ndarray, shape (r, k)
+        Allan variance, unit u²; NaN where no term fits.
+    """
+    y = np.empty(length)
+    x = np.empty(length + 1)
+    k = ms.shape[0]
+    sums = np.zeros(k)
+    counts = np.zeros(k, dtype=np.int64)
+    period = params[0]
+    for r in range(out.shape[0]):
+        _simulate_record(rng, y, params, extra[r])
+        sums[:] = 0.0
+        counts[:] = 0
+        for s in range(starts.shape[0]):
+            a, b = starts[s], stops[s]
+            nx = b - a + 1
+            seg = y[a:b]
+            _integrate(seg, np.mean(seg), period, x[:nx])
+            for j in range(k):
+                c = nx - 2 * ms[j]
+                if c >= 1:
+                    sums[j] += _sum_overlapping2(x[:nx], ms[j], c)
+                    counts[j] += c
+        for j in range(k):
+            tau = ms[j] * period
+            out[r, j] = sums[j] / (2.0 * tau * tau * counts[j]) if counts[j] > 0 else np.nan
+    return out

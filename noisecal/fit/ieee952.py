@@ -333,6 +333,29 @@ def replicate_curves(simulate, expected, period: float, m: np.ndarray,
                      progress=None) -> np.ndarray:
     """Allan variance curves of records simulated from a fitted model.
 
+    When ``simulate`` is a :class:`noisecal.fit.simulate.RateModel` the
+    replicates are simulated in compiled batches on all cores
+    (:func:`noisecal.fit.simulate.replicate_avar`: the same scheme and the
+    same distribution, tested); any other callable takes
+    :func:`replicate_curves_reference`. Parameters and result as there.
+    """
+    from .simulate import RateModel, replicate_avar
+
+    if isinstance(simulate, RateModel):
+        return replicate_avar(simulate, expected, period, m, segments, reps, seed,
+                              progress, full_max=FULL_SIM_MAX)
+    return replicate_curves_reference(simulate, expected, period, m, segments, reps, seed,
+                                      progress)
+
+
+def replicate_curves_reference(simulate, expected, period: float, m: np.ndarray,
+                               segments: list[tuple[int, int]], reps: int, seed: int,
+                               progress=None) -> np.ndarray:
+    """Allan variance curves of records simulated from a fitted model (reference path).
+
+    One record at a time in numpy; the specification the batched path is
+    tested against.
+
     Records up to ``FULL_SIM_MAX`` samples are simulated sample for sample
     with the recording's gap layout. Longer records are simulated at two
     levels: short taus (m < 4d) from a fine record of ``FULL_SIM_MAX``

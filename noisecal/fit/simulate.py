@@ -17,6 +17,8 @@ Proc. IEEE 83(5), 1995 (spectral shaping of white noise).
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 TERM_NAMES = ("quantization", "white_noise", "bias_instability", "bias_random_walk", "rate_ramp")
@@ -162,3 +164,162 @@ def gauss_markov(n: int, period: float, sigma: float, corr_time: float,
     w = rng.standard_normal(n) * sigma * np.sqrt(1.0 - phi ** 2)
     w[0] = rng.standard_normal() * sigma
     return lfilter([1.0], [1.0, -phi], w)
+
+
+@dataclass(frozen=True)
+class RateModel:
+    """A rate process of known terms, as the parametric bootstraps simulate it.
+
+    Calling it is the reference simulation (numpy, one record);
+    :func:`replicate_avar` simulates the same process in compiled batches.
+
+    Attributes
+    ----------
+    c2 : ndarray, shape (5,)
+        Squared coefficients [Q², N², B², K², R²], SI (negative entries count as 0).
+    gm : (sigma, corr_time), optional
+        Gauss–Markov term: stationary std (unit u) and correlation time (s).
+    low_pass : float
+        Time constant (s) of a first-order low-pass of DC gain 1 applied to the
+        whole record (a band-limited sensor); 0 for none.
+    """
+
+    c2: np.ndarray
+    gm: tuple[float, float] | None = None
+    low_pass: float = 0.0
+
+    def __call__(self, period: float, n: int, rng: np.random.Generator) -> np.ndarray:
+        y = simulate_rate(np.maximum(self.c2, 0.0), period, n, rng, gm=self.gm)
+        if self.low_pass > 0:
+            from scipy.signal import lfilter
+
+            a = np.exp(-period / self.low_pass)
+            y = lfilter([1.0 - a], [1.0, -a], y)
+        return y
+
+    def params(self, period: float) -> np.ndarray:
+        """Per-sample parameters of a record at ``period`` (``engine.RECORD_PARAMS``)."""
+        q2, n2, _, k2, r2 = (max(float(v), 0.0) for v in self.c2)
+        sigma, corr = self.gm if self.gm is not None and self.gm[0] > 0 else (0.0, 1.0)
+        phi = np.exp(-period / corr)
+        # The random walk's bridge part N(0, K²dt/12) is white and independent of the
+        # white noise: one draw of their summed variance has the same distribution.
+        white = n2 / period + (k2 * period / 12.0 if k2 > 0 else 0.0)
+        pole = np.exp(-period / self.low_pass) if self.low_pass > 0 else 0.0
+        return np.array([period, np.sqrt(white), np.sqrt(q2), np.sqrt(k2 * period),
+                         np.sqrt(r2) * period, phi, sigma, sigma * np.sqrt(1.0 - phi ** 2),
+                         pole])
+
+    def flicker_batch(self, count: int, period: float, n: int,
+                      rng: np.random.Generator) -> np.ndarray:
+        """Flicker parts of ``count`` records, shape (count, n), or (count, 0) if none."""
+        b2 = max(float(self.c2[2]), 0.0)
+        if b2 <= 0:
+            return np.empty((count, 0))
+        from scipy import fft
+
+        size = fft.next_fast_len(2 * n, real=True)
+        spec = fft.rfft(rng.standard_normal((count, size)), axis=1)
+        f = np.fft.rfftfreq(size, d=period)
+        spec[:, 0] = 0.0
+        spec[:, 1:] /= np.sqrt(f[1:])
+        return np.ascontiguousarray(fft.irfft(spec, size, axis=1)[:, :n]) * np.sqrt(
+            b2 / np.pi / (2.0 * period))
+
+
+CHUNK = 8
+"""Replicates per compiled call and per seed of the batched bootstrap: small enough
+that both cores get work with 200 replicates, large enough to amortise the call."""
+
+
+def replicate_avar(model: RateModel, expected, period: float, m: np.ndarray,
+                   segments: list[tuple[int, int]], reps: int, seed: int,
+                   progress=None, full_max: int = 2 ** 16) -> np.ndarray:
+    """Allan variance curves of records simulated from ``model``, in compiled batches.
+
+    The same two-level scheme as :func:`noisecal.fit.ieee952.replicate_curves`
+    (its reference path is the specification; a test compares the two over
+    seeds): records up to ``full_max`` samples are simulated whole with the gap
+    layout; longer ones as a fine record of ``full_max`` samples for m < 4d,
+    its deviations from the model scaled by sqrt(terms there / terms in the
+    real record), and a record at period d·tau0 over the full duration for
+    the rest. Replicates are simulated ``CHUNK`` at a time, each chunk from its
+    own child of ``numpy.random.SeedSequence(seed)``, on the engine's threads
+    (the kernels release the GIL); the result depends on the seed only, not on
+    the number of cores.
+
+    Parameters
+    ----------
+    model : RateModel
+    expected : callable
+        ``expected(taus)`` → model Allan variance, shape (k,).
+    period : float
+        Sample period, s.
+    m : ndarray of int, shape (k,)
+        Averaging factors of the fit grid.
+    segments : list of (start, stop)
+        Gap layout of the real record.
+    reps : int
+        Number of replicates.
+    seed : int
+        Seed of the replicates.
+    progress : callable, optional
+        Called with the number of replicates done after each chunk.
+    full_max : int
+        Longest record simulated sample for sample.
+
+    Returns
+    -------
+    avar : ndarray, shape (reps, k)
+        Unit u².
+    """
+    from ..analysis import engine
+
+    m = np.asarray(m, dtype=np.int64)
+    n = int(sum(b - a for a, b in segments))
+    k = m.shape[0]
+    if n <= full_max:
+        # Runs re-based onto the simulated record, which holds only the samples.
+        lengths = np.array([b - a for a, b in segments], dtype=np.int64)
+        stops = np.cumsum(lengths)
+        levels = [(np.ones(k, dtype=bool), period, n, stops - lengths, stops, m)]
+        model_fine, ratio = None, None
+    else:
+        d = 2 ** int(np.ceil(np.log2(n / full_max)))
+        fine = m < 4 * d
+        one = np.zeros(1, dtype=np.int64)
+        levels = [(fine, period, full_max, one, one + full_max, m[fine]),
+                  (~fine, period * d, n // d, one, one + n // d, m[~fine] // d)]
+        model_fine = expected(m[fine] * period)
+        ratio = np.sqrt(np.maximum(full_max + 1 - 2 * m[fine], 1) / (n + 1 - 2 * m[fine]))
+    out = np.empty((reps, k))
+    sizes = [min(CHUNK, reps - s) for s in range(0, reps, CHUNK)]
+    children = np.random.SeedSequence(seed).spawn(len(sizes))
+
+    def chunk(count, child):
+        rng = np.random.default_rng(child)
+        block = np.empty((count, k))
+        for cols, p, length, starts, stops, ms in levels:
+            part = np.empty((count, ms.shape[0]))
+            engine.oavar_records(rng, model.params(p), length, starts, stops, ms,
+                                 model.flicker_batch(count, p, length, rng), part)
+            block[:, cols] = part
+        return block
+
+    pool = engine._pool()
+    futures = [pool.submit(chunk, c, s) for c, s in zip(sizes, children)]
+    try:
+        row = 0
+        for count, fut in zip(sizes, futures):
+            out[row:row + count] = fut.result()
+            row += count
+            if progress:
+                progress(count)
+    finally:
+        for fut in futures:
+            fut.cancel()
+    if model_fine is None:
+        return out
+    fine = levels[0][0]
+    out[:, fine] = model_fine + (out[:, fine] - model_fine) * ratio
+    return np.maximum(out, 0.0)
