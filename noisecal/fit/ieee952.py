@@ -35,7 +35,7 @@ from scipy import optimize, stats
 from ..analysis.allan import deviation
 from ..types import AllanCurve, Estimate
 from ..units import derived_unit
-from .simulate import TERM_NAMES, basis, simulate_rate
+from .simulate import TERM_NAMES, RateModel, basis, simulate_rate
 
 FULL_SIM_MAX = 2 ** 16
 """Longest record simulated sample for sample; longer ones are simulated decimated."""
@@ -463,8 +463,8 @@ def fit_terms(curve: AllanCurve, period: float, segments: list[tuple[int, int]],
         # Replicates carry the fitted low-pass, so the band-limit column sees its own kind.
         return one_pole(y, p, lag) if lag > 0 else y
 
-    sims = replicate_curves(simulate, lambda t: basis6(t) @ sel.c6, period, curve.m,
-                            segments, reps, seed, progress)
+    sims = replicate_curves(RateModel(truth, low_pass=lag), lambda t: basis6(t) @ sel.c6,
+                            period, curve.m, segments, reps, seed, progress)
     Au, nuu = A[used], nu[used]
     boot6 = np.array([fit_structure(Au, s[used], nuu, sel.cols) for s in sims])
     dev_rep = np.array([misfit(Au, s[used], nuu, b) for s, b in zip(sims, boot6)])

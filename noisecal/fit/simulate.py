@@ -193,9 +193,15 @@ class RateModel:
         if self.low_pass > 0:
             from scipy.signal import lfilter
 
-            a = np.exp(-period / self.low_pass)
+            a = self.pole(period)
             y = lfilter([1.0 - a], [1.0, -a], y)
         return y
+
+    def pole(self, period: float) -> float:
+        """Pole of the discrete low-pass at ``period`` (that of ``ieee952.one_pole``; tested)."""
+        if self.low_pass <= 0:
+            return 0.0
+        return float((np.hypot(period, self.low_pass) - period) / self.low_pass)
 
     def params(self, period: float) -> np.ndarray:
         """Per-sample parameters of a record at ``period`` (``engine.RECORD_PARAMS``)."""
@@ -205,7 +211,7 @@ class RateModel:
         # The random walk's bridge part N(0, K²dt/12) is white and independent of the
         # white noise: one draw of their summed variance has the same distribution.
         white = n2 / period + (k2 * period / 12.0 if k2 > 0 else 0.0)
-        pole = np.exp(-period / self.low_pass) if self.low_pass > 0 else 0.0
+        pole = self.pole(period)
         return np.array([period, np.sqrt(white), np.sqrt(q2), np.sqrt(k2 * period),
                          np.sqrt(r2) * period, phi, sigma, sigma * np.sqrt(1.0 - phi ** 2),
                          pole])
@@ -218,8 +224,17 @@ class RateModel:
             return np.empty((count, 0))
         from scipy import fft
 
+        from ..analysis.engine import fill_normals
+
         size = fft.next_fast_len(2 * n, real=True)
-        spec = fft.rfft(rng.standard_normal((count, size)), axis=1)
+        bins = size // 2 + 1
+        # The rfft of white unit noise, drawn directly: bins strictly between DC and
+        # Nyquist are complex with independent N(0, size/2) parts, a Nyquist bin
+        # (even size) is real N(0, size). Same distribution, one transform fewer.
+        raw = fill_normals(rng, np.empty(count * bins * 2))
+        spec = raw.view(np.complex128).reshape(count, bins) * np.sqrt(size / 2.0)
+        if size % 2 == 0:
+            spec[:, -1] = spec[:, -1].real * np.sqrt(2.0)
         f = np.fft.rfftfreq(size, d=period)
         spec[:, 0] = 0.0
         spec[:, 1:] /= np.sqrt(f[1:])

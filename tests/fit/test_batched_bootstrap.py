@@ -16,9 +16,9 @@ import pytest
 from scipy import stats
 
 from noisecal.fit.gauss_markov import _fit_many, _fit_one
-from noisecal.fit.ieee952 import (pivot_interval, replicate_curves,
+from noisecal.fit.ieee952 import (one_pole, pivot_interval, replicate_curves,
                                   replicate_curves_reference, weighted_nnls)
-from noisecal.fit.simulate import RateModel, basis, gm_avar
+from noisecal.fit.simulate import RateModel, basis, gm_avar, simulate_rate
 
 PERIOD = 0.01
 M = 2 ** np.arange(16)
@@ -140,3 +140,13 @@ def test_compiled_gauss_markov_refit_equals_the_scipy_one():
     fast = _fit_many(taus, sims, nu, grid)
     ref = np.array([_fit_one(taus, s, nu, grid)[1:] for s in sims])
     np.testing.assert_allclose(fast, ref, rtol=1e-8)
+
+
+def test_rate_model_is_the_fit_terms_simulation():
+    """RateModel(c2, low_pass=T) simulates what fit_terms' replicates carry: the terms,
+    then ``one_pole`` at the record's period (same draws, same numbers)."""
+    c2 = np.array([1e-9, 1e-6, 1e-7, 4e-9, 0.0])
+    for period in (0.01, 0.64):
+        got = RateModel(c2, low_pass=0.05)(period, 5000, np.random.default_rng(4))
+        want = one_pole(simulate_rate(c2, period, 5000, np.random.default_rng(4)), period, 0.05)
+        np.testing.assert_allclose(got, want, rtol=1e-12, atol=0)
