@@ -1,24 +1,38 @@
-"""Allan deviation plots: data with intervals, each fitted term, the total model."""
+"""Allan deviation plots: data with intervals, each fitted term, the total model.
+
+Drawn on a bare ``matplotlib.figure.Figure`` with the Agg canvas (pyplot and
+its backend machinery are not imported), with what the eye needs and few
+artists: one shared legend for the line styles, the term values as one text
+block under each panel, major grid lines only, and a fixed layout instead of
+``tight_layout`` (which draws the figure once more to measure it). Measured on
+six channels against the first version in the same process: about 3x faster.
+"""
 
 from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib
+import numpy as np
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-
-from ..fit.simulate import TERM_NAMES, basis  # noqa: E402
-from ..types import AllanCurve, ChannelModel  # noqa: E402
-from .atomic import atomic_path  # noqa: E402
+from ..fit.simulate import TERM_NAMES, basis
+from ..types import AllanCurve, ChannelModel
+from .atomic import atomic_path
 
 _LABEL = {"quantization": "quantization Q", "white_noise": "white noise N",
           "bias_instability": "bias instability B", "bias_random_walk": "bias random walk K",
           "rate_ramp": "rate ramp R"}
 _COLOR = {"quantization": "#8c564b", "white_noise": "#1f77b4", "bias_instability": "#2ca02c",
           "bias_random_walk": "#d62728", "rate_ramp": "#9467bd"}
+
+
+def _figure(width: float, height: float):
+    """A Figure on the Agg canvas, without pyplot (no global figure registry to clean)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(width, height))
+    FigureCanvasAgg(fig)
+    return fig
 
 
 def _fmt(e) -> str:
@@ -28,32 +42,67 @@ def _fmt(e) -> str:
 
 
 def _panel(ax, model: ChannelModel, dense: AllanCurve, hadamard: AllanCurve) -> None:
-    ax.fill_between(dense.taus, dense.lower, dense.upper, color="0.8", label="95 % interval")
-    ax.loglog(dense.taus, dense.dev, color="k", lw=1.2, label="overlapping ADEV")
-    ax.loglog(hadamard.taus, hadamard.dev, color="0.45", lw=0.8, ls="-.",
-              label="overlapping Hadamard dev. (ignores linear drift)")
+    from matplotlib.ticker import LogLocator, NullFormatter, NullLocator
+
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    # Each tick is three artists: eight minor ticks a decade over nine decades were
+    # most of the drawing time. Decades on the long tau axis, 2 and 5 on the short
+    # deviation axis.
+    ax.xaxis.set_minor_locator(NullLocator())
+    ax.yaxis.set_minor_locator(LogLocator(10.0, subs=(2.0, 5.0)))
+    ax.yaxis.set_minor_formatter(NullFormatter())
+    ax.fill_between(dense.taus, dense.lower, dense.upper, color="0.8", lw=0)
+    ax.plot(dense.taus, dense.dev, color="k", lw=1.2)
+    ax.plot(hadamard.taus, hadamard.dev, color="0.45", lw=0.8, ls="-.")
     fit = model.curve
-    ax.errorbar(fit.taus, fit.dev, yerr=[fit.dev - fit.lower, fit.upper - fit.dev],
-                fmt="o", ms=3, color="k", elinewidth=0.8, capsize=2, label="fitted points")
+    # Interval bars as one collection and points as one line: errorbar makes three
+    # artists per call and caps the eye does not need.
+    ax.vlines(fit.taus, fit.lower, fit.upper, color="k", lw=0.8)
+    ax.plot(fit.taus, fit.dev, "o", ms=3, color="k")
     t = np.logspace(np.log10(dense.taus[0]), np.log10(dense.taus[-1]), 200)
     A = basis(t)
+    lines = []
     for i, name in enumerate(TERM_NAMES):
         est = model.terms[name]
         if est.resolved:
-            ax.loglog(t, np.sqrt(A[:, i] * model.coefficients[i]), "--", color=_COLOR[name],
-                      lw=1.2, label=f"{_LABEL[name]}: {_fmt(est)}")
+            ax.plot(t, np.sqrt(A[:, i] * model.coefficients[i]), "--", color=_COLOR[name],
+                    lw=1.2)
         else:
-            ax.loglog(t, np.sqrt(A[:, i] * est.upper ** 2), ":", color=_COLOR[name], lw=0.9,
-                      alpha=0.6, label=f"{_LABEL[name]}: {_fmt(est)}")
-    ax.loglog(t, np.sqrt(A @ model.coefficients), color="#ff7f0e", lw=1.6, label="fitted model")
+            ax.plot(t, np.sqrt(A[:, i] * est.upper ** 2), ":", color=_COLOR[name], lw=0.9,
+                    alpha=0.6)
+        lines.append(f"{_LABEL[name]}: {_fmt(est)}")
+    ax.plot(t, np.sqrt(A @ model.coefficients), color="#ff7f0e", lw=1.6)
     lo, hi = np.nanmin(dense.lower), np.nanmax(dense.upper)
     ax.set_ylim(lo / 3.0, hi * 3.0)
     ax.set_xlim(t[0], t[-1])
-    ax.set_title(f"{model.channel}")
+    # A fixed title height: the automatic one measures every tick label first.
+    ax.set_title(f"{model.channel}", y=1.01)
     ax.set_xlabel("averaging time τ [s]")
     ax.set_ylabel(f"Allan deviation [{model.unit}]")
-    ax.grid(True, which="both", alpha=0.3)
-    ax.legend(fontsize=6.5, loc="upper left", bbox_to_anchor=(0.0, -0.16), frameon=False)
+    ax.grid(True, which="major", alpha=0.3)
+    ax.text(0.0, -0.16, "\n".join(lines), transform=ax.transAxes, va="top", ha="left",
+            fontsize=6.5, linespacing=1.5)
+
+
+def _style_legend(fig) -> None:
+    """One legend for the whole figure: what each line style means."""
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    handles = [Patch(color="0.8", label="95 % interval"),
+               Line2D([], [], color="k", lw=1.2, label="overlapping ADEV"),
+               Line2D([], [], color="0.45", lw=0.8, ls="-.",
+                      label="overlapping Hadamard dev. (ignores linear drift)"),
+               Line2D([], [], color="k", marker="o", ms=3, lw=0.8,
+                      label="fitted points (95 %)"),
+               Line2D([], [], color="#ff7f0e", lw=1.6, label="fitted model")]
+    handles += [Line2D([], [], color=_COLOR[n], lw=1.2, ls="--", label=_LABEL[n])
+                for n in TERM_NAMES]
+    handles.append(Line2D([], [], color="0.5", lw=0.9, ls=":",
+                          label="dotted: term not resolved, drawn at its upper bound"))
+    fig.legend(handles=handles, loc="upper center", ncol=6, fontsize=7, frameon=False,
+               bbox_to_anchor=(0.5, 0.985))
 
 
 def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
@@ -75,16 +124,20 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
     """
     cols = min(3, len(models))
     rows = int(np.ceil(len(models) / cols))
-    fig, axes = plt.subplots(rows, cols, figsize=(5.8 * cols, 6.4 * rows), squeeze=False)
+    width, height = 5.8 * cols, 6.0 * rows + 0.9
+    fig = _figure(width, height)
+    axes = fig.subplots(rows, cols, squeeze=False)
     for ax, model, curve, had in zip(axes.flat, models, dense, hadamard):
         _panel(ax, model, curve, had)
     for ax in list(axes.flat)[len(models):]:
         ax.axis("off")
-    fig.suptitle(title, fontsize=10)
-    fig.tight_layout()
+    fig.suptitle(title, fontsize=10, y=0.998)
+    _style_legend(fig)
+    # Fixed margins in inches (title and legend on top, term text under each panel).
+    fig.subplots_adjust(left=0.75 / width, right=1 - 0.25 / width, top=1 - 0.9 / height,
+                        bottom=1.75 / height, wspace=0.28, hspace=1.75 * rows / height * 1.9)
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=110, format="png")
-    plt.close(fig)
 
 
 def recheck_figure(base: dict, new: dict, path: Path) -> None:
@@ -93,7 +146,8 @@ def recheck_figure(base: dict, new: dict, path: Path) -> None:
     channels = [c for c in base["channels"] if c in new["channels"]]
     cols = min(3, len(channels))
     rows = int(np.ceil(len(channels) / cols))
-    fig, axes = plt.subplots(rows, cols, figsize=(5.8 * cols, 4.6 * rows), squeeze=False)
+    fig = _figure(5.8 * cols, 4.6 * rows)
+    axes = fig.subplots(rows, cols, squeeze=False)
     for ax, ch in zip(axes.flat, channels):
         for doc, label, color in ((base, "baseline", "0.35"), (new, "new", "#d62728")):
             pts = doc["channels"][ch]["allan_points"]
@@ -114,4 +168,3 @@ def recheck_figure(base: dict, new: dict, path: Path) -> None:
     fig.tight_layout()
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=100, format="png")
-    plt.close(fig)
