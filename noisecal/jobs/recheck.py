@@ -127,11 +127,15 @@ def _f_dof(base: dict, new: dict, ch: str, name: str, be: dict, ne: dict):
     if base["layout"] == "noisecal.static/1":
         b, n = base["channels"][ch], new["channels"][ch]
         at_tau0 = name == "white_noise" or not be.get("tau_s")
-        tau = (float(b["allan_points"]["tau_s"][0]) if at_tau0
+        # White noise is tested at the first tau the fit used: below it a sensor's
+        # low-pass, not its white noise, sets the curve.
+        first = max(float(x.get("bandwidth", {}).get("fitted_from_tau_s") or 0.0)
+                    for x in (b, n))
+        tau = (max(float(b["allan_points"]["tau_s"][0]), first) if at_tau0
                else float(np.sqrt(np.prod(be["tau_s"]))))
         vb, db = _allan_point(b, tau)
         vn, dn = _allan_point(n, tau)
-        if name == "white_noise":
+        if name == "white_noise" and first <= float(b["allan_points"]["tau_s"][0]):
             db, dn = _white_edf(b, db), _white_edf(n, dn)
         return vb, db, vn, dn
     if base["layout"] == "noisecal.motion/1" and name == "sigma":
