@@ -93,7 +93,20 @@ def test_failed_read_leaves_no_entry(tmp_path, fresh_cache):
 
 def test_interrupted_run_leaves_no_output(tmp_path, fresh_cache):
     """Ctrl-C (SIGINT) during the static job: no output, no temporary file, no
-    cache folder half-written."""
+    cache folder half-written.
+
+    The signal is sent once the progress bar (drawn because stderr is a
+    terminal, here a pseudo-terminal) shows the bootstrap under way and not
+    finished, so the job is interrupted mid-bootstrap however fast it runs;
+    2000 replicates keep that phase seconds long."""
+    import fcntl
+    import pty
+    import re
+    import select
+    import struct
+    import termios
+    import time as _time
+
     y = np.random.default_rng(0).standard_normal(400_000)
     path = tmp_path / "r.csv"
     with open(path, "w") as fh:
@@ -102,21 +115,41 @@ def test_interrupted_run_leaves_no_output(tmp_path, fresh_cache):
     out = tmp_path / "out" / "r.yaml"
     out.parent.mkdir()
     env = dict(os.environ, NOISECAL_CACHE=str(fresh_cache))
+    master, slave = pty.openpty()
+    # A new pseudo-terminal is 0 columns wide, and tqdm draws nothing in no width.
+    fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 24, 120, 0, 0))
     proc = subprocess.Popen([sys.executable, "-m", "noisecal.cli", "static", str(path), "-o",
-                             str(out), "--quiet", "--reps", "2000"], env=env,
-                            stderr=subprocess.PIPE, text=True)
-    import time as _time
-
-    deadline = _time.monotonic() + 120
-    while _time.monotonic() < deadline and proc.poll() is None:
-        if fresh_cache.exists() and entries(fresh_cache):
-            break  # read and cached: the job is now computing
-        _time.sleep(0.05)
-    assert proc.poll() is None, "the job ended before it could be interrupted"
-    _time.sleep(0.5)
-    proc.send_signal(2)
-    err = proc.communicate(timeout=60)[1]
-    assert proc.returncode == 130, err
+                             str(out), "--reps", "2000"], env=env, stdin=subprocess.DEVNULL,
+                            stdout=subprocess.DEVNULL, stderr=slave)
+    os.close(slave)
+    text, sent = "", False
+    bar = re.compile(r"bootstrap:\s*\d+%\|[^|]*\|\s*(\d+)/(\d+)")
+    deadline = _time.monotonic() + 180
+    try:
+        while _time.monotonic() < deadline:
+            ready, _, _ = select.select([master], [], [], 0.05)
+            if ready:
+                try:
+                    chunk = os.read(master, 65536)
+                except OSError:  # the child closed the terminal
+                    break
+                if not chunk:
+                    break
+                text += chunk.decode("utf-8", "replace")
+            if not sent:
+                done = [(int(a), int(b)) for a, b in bar.findall(text)]
+                if any(0 < a < b for a, b in done):
+                    proc.send_signal(2)
+                    sent = True
+            elif proc.poll() is not None:
+                break
+        assert sent, "the job ended before it could be interrupted mid-bootstrap:\n" + text[-2000:]
+        proc.wait(timeout=60)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+        os.close(master)
+    assert proc.returncode == 130, text[-2000:]
     assert list(out.parent.iterdir()) == []
     assert not [p for p in fresh_cache.iterdir() if p.name.startswith(".building")]
 
