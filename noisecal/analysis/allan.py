@@ -262,7 +262,8 @@ def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
         curve instead of identifying it again: the type belongs to the data,
         not to the estimator, and identification is a full pass per tau. Only
         where that point was identified and this tau itself has enough cluster
-        averages for identification; elsewhere the conservative EDF is used.
+        averages for identification (identified here if the source has no type
+        there); elsewhere the conservative EDF is used.
 
     Returns
     -------
@@ -294,9 +295,11 @@ def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
         src_ok = (np.ones(noise_from.taus.shape[0], dtype=bool)
                   if noise_from.identified is None else np.asarray(noise_from.identified))
         # Borrow only an identified type, and only where this tau could have been
-        # identified itself: never carry a type across to a few-cluster tau.
-        ident = [int(noise_from.alpha[k]) if src_ok[k] and y_long.shape[0] // mj >= MIN_BLOCKS
-                 else None for k, mj in zip(near, m)]
+        # identified itself: never carry a type across to a few-cluster tau. Where the
+        # source has none but this tau has enough averages, identify it here.
+        enough = y_long.shape[0] // m >= MIN_BLOCKS
+        ident = [(int(noise_from.alpha[k]) if src_ok[k] else noise_id_lag1(y_long, int(mj), dmax=d))
+                 if ok else None for k, mj, ok in zip(near, m, enough)]
     else:
         ident = [noise_id_lag1(y_long, int(mj), dmax=d) for mj in m]
     identified = np.array([a is not None for a in ident], dtype=bool)

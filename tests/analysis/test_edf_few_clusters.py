@@ -231,6 +231,10 @@ def test_no_type_is_borrowed_across_taus():
     assert np.array_equal(dense.identified, y.shape[0] // dense.m >= MIN_BLOCKS)
     own = allan_curve(y, 0.1, "1", "oadev", dense.m)  # identified afresh: same EDF where none
     np.testing.assert_allclose(dense.edf[~dense.identified], own.edf[~own.identified])
-    # The source's unidentified points are not borrowed either.
-    none = replace(src, identified=np.zeros_like(src.identified))
-    assert not allan_curve(y, 0.1, "1", "ohdev", "octave", noise_from=none).identified.any()
+    # The source's unidentified points are not borrowed either: identified afresh where
+    # this tau has enough averages (the source's claimed alpha 0 would be wrong here).
+    none = replace(src, identified=np.zeros_like(src.identified), alpha=src.alpha - 5)
+    got = allan_curve(y, 0.1, "1", "ohdev", "octave", noise_from=none)
+    fresh = allan_curve(y, 0.1, "1", "ohdev", "octave")
+    np.testing.assert_array_equal(got.identified, fresh.identified)
+    np.testing.assert_array_equal(got.alpha, fresh.alpha)
