@@ -193,6 +193,11 @@ class Selection:
     criterion: float
     ranked: list
 
+    def _rivals(self, margin: float):
+        """Other structures whose criterion is within ``margin`` of the chosen one."""
+        return [(c, v) for c, v in self.ranked
+                if c != self.cols and abs(v - self.criterion) < margin]
+
     def swappable(self, margin: float = NEAR_TIE) -> dict:
         """Chosen columns that another column can replace within ``margin``.
 
@@ -205,9 +210,7 @@ class Selection:
         """
         chosen = set(self.cols)
         out = {}
-        for cols, crit in self.ranked[1:]:
-            if crit - self.criterion >= margin:
-                break
+        for cols, crit in self._rivals(margin):
             other = set(cols)
             if len(other) == len(chosen) and len(other ^ chosen) == 2:
                 (lost,), (gained,) = chosen - other, other - chosen
@@ -218,9 +221,7 @@ class Selection:
         """Plain sentences for structures that score within ``margin`` of the chosen one."""
         chosen = set(self.cols)
         out = []
-        for cols, crit in self.ranked[1:]:
-            if crit - self.criterion >= margin:
-                break
+        for cols, crit in self._rivals(margin):
             other = set(cols)
             gained, lost = sorted(other - chosen), sorted(chosen - other)
             if set(gained) | set(lost) == {5}:
@@ -240,7 +241,9 @@ class Selection:
 
 def select_structure(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
                      penalty: float = PENALTY) -> Selection:
-    """The structure of least deviance plus ``penalty`` per term.
+    """The structure of least deviance plus ``penalty`` per term (the simplest of
+    those within ``NEAR_TIE`` of the least, and of equally simple ones, one
+    without the ramp).
 
     Each structure of :func:`structures` is fitted by weighted NNLS and
     scored by the chi-square deviance of :func:`misfit`; a structure whose fit
@@ -277,8 +280,14 @@ def select_structure(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
         c[1] = float(np.median(avar / A[:, 1]))
         return Selection((1,), c, misfit(A, avar, nu, c), [((1,), misfit(A, avar, nu, c))])
     ranked.sort(key=lambda r: r[1])
-    best = ranked[0][0]
-    return Selection(best, fits[best], ranked[0][1], ranked)
+    # Among the structures tied with the best, the one with fewest terms: a flat floor
+    # plus a ramp can mimic a random walk's rise and win by a hair.
+    tied = [r for r in ranked if r[1] < ranked[0][1] + NEAR_TIE]
+    # (The band-limit nuisance column does not count as a term here.) Between equally
+    # simple tied models, one without the ramp: a random walk's Q lets a filter follow
+    # a slow rise, a ramp (deterministic, usually a temperature drift) gives it none.
+    best, crit = min(tied, key=lambda r: (len(set(r[0]) - {5}), 4 in r[0], r[1]))
+    return Selection(best, fits[best], crit, ranked)
 
 
 def usable_from(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, lower: np.ndarray,
@@ -661,13 +670,9 @@ def term_estimates(fit: TermFit, curve: AllanCurve, level: float = 0.95) -> dict
     swaps = fit.selection.swappable()
     for i, name in enumerate(TERM_NAMES):
         unit = derived_unit(curve.unit, name)
-        if i not in chosen or i in swaps:
+        if i not in chosen:
             bound, tau = term_bound(curve, i, level, used)
-            if i in swaps:
-                why = (f"{' or '.join(COLUMNS[j] for j in sorted(swaps[i]))} in its place "
-                       f"fits within {NEAR_TIE:g} of the criterion: the curve needs a term "
-                       "there, but not which")
-            elif i == 0 and 5 in chosen:
+            if i == 0 and 5 in chosen:
                 why = ("the band-limit term was chosen at short taus: the sensor's low-pass, "
                        "under which quantization cannot be seen")
             else:
@@ -678,6 +683,9 @@ def term_estimates(fit: TermFit, curve: AllanCurve, level: float = 0.95) -> dict
                         f"{level:.0%} simultaneous chi-square limit at every fitted tau"))
             continue
         (lo, hi), how = selected_interval(fit.c2[i], fit.replicates[:, i], level)
+        tie = (f"; near tie: {' or '.join(COLUMNS[j] for j in sorted(swaps[i]))} in its place "
+               f"fits within {NEAR_TIE:g} of the criterion (chosen: fewer terms, no ramp where a "
+               "random walk fits as well, else the lower criterion)" if i in swaps else "")
         share = A[:, i] * fit.c2[i] / model
         hold = taus[share >= 0.5]
         tau_range = ((float(hold.min()), float(hold.max())) if hold.size
@@ -687,6 +695,6 @@ def term_estimates(fit: TermFit, curve: AllanCurve, level: float = 0.95) -> dict
             method=(f"selected by deviance + {PENALTY:g} per term; weighted NNLS on "
                     f"overlapping AVAR at tau >= {taus[0]:.3g} s; interval by parametric "
                     f"bootstrap within the selected terms ({reps} replicates, seed "
-                    f"{fit.seed}), {how}"),
+                    f"{fit.seed}), {how}{tie}"),
             level=level, tau_range=tau_range)
     return out
