@@ -149,7 +149,7 @@ def edf_total(alpha: int, m: int, n_phase: int) -> float:
     nu : float
         b·T/tau − c (NIST SP 1065 Table 7) for alpha = 0, −1, −2. For white and
         flicker PM (alpha = 2, 1), where the table has no entry, the simple AVAR
-        approximations of SP 1065 Table 5 with N phase points, as the Stable32
+        approximations of SP 1065 Table 5 with N phase points, as the reference
         total-deviation tables do. At least 1.
 
     References

@@ -85,13 +85,15 @@ def test_white_noise_up_thirty_percent_is_worse(tmp_path):
 
 
 def test_too_short_is_inconclusive(tmp_path):
-    """A recording too short to resolve the baseline's random walk cannot decide it:
-    'inconclusive' (exit 3), with how many times longer to record."""
+    """A recording too short to decide the baseline's random walk: 'inconclusive' (exit
+    3), with how many times longer to record. Whether the short record bounds the term
+    (the figure is then the length ratio) or resolves it with a wide interval (then the
+    80 % power calculation on its interval), the figure is the length ratio within 5 %."""
     base, _ = _block(tmp_path, "base", 2 ** 16, 3)
     _, new = _block(tmp_path, "new", 1500, 4)
     res = recheck(str(base), str(new))
     rw = [c for c in res.comparisons if c.name == "bias_random_walk"][0]
-    assert rw.verdict == "inconclusive" and rw.longer == pytest.approx(2 ** 16 / 1500, rel=0.02)
+    assert rw.verdict == "inconclusive" and rw.longer == pytest.approx(2 ** 16 / 1500, rel=0.05)
     assert res.verdict == "inconclusive" and res.exit_status == 3
 
 
