@@ -121,3 +121,26 @@ def test_inspect_reports_gap(run_cli, bench):
     status, out, _ = run_cli("inspect", bench)
     assert status == 0
     assert "gap at 1199.9 s" in out and "gyro_a" in out and "[deg/s] -> [rad/s]" in out
+
+
+def test_model_check_selection_bandwidth_and_turn_on(result):
+    """Every channel carries its model check, the selected terms, where the fit
+    started and its mean with an interval. The simulated gyro was offset by 0.02 deg/s
+    and the accelerometer by 1 g on a level axis: the means hold them, and the
+    accelerometer's P0 bias std is taken about g (common practice, no source)."""
+    _, doc = result
+    for name in TRUE:
+        ch = doc["channels"][name]
+        mc = ch["model_check"]
+        assert mc["consistent"] is True and 0 < mc["p_value"] <= 1
+        assert mc["points_outside"] == len(mc["outside"]) <= mc["points_fitted"]
+        assert "white_noise" in ch["model_selection"]["terms"]
+        assert ch["bandwidth"]["fitted_from_tau_s"] == pytest.approx(0.1)
+        mean = ch["turn_on_bias"]["mean"]
+        assert mean["ci95"][0] < mean["value"] < mean["ci95"][1]
+    gyro = doc["channels"]["gyro_a"]["turn_on_bias"]
+    assert gyro["mean"]["ci95"][0] < 0.02 * DEG < gyro["mean"]["ci95"][1]
+    assert gyro["p0_std"] >= abs(gyro["mean"]["value"])
+    acc = doc["channels"]["acc_b"]["turn_on_bias"]
+    assert acc["mean"]["ci95"][0] < 9.80665 < acc["mean"]["ci95"][1]
+    assert acc["p0_std"] < 0.01 and "level" in acc["note"]
