@@ -9,6 +9,7 @@ import sys
 from . import __version__
 from .errors import InputError, NoisecalError
 from .history import DEFAULT_DB
+from .jobs.result import ParameterError
 
 EXIT_ERROR = 2
 
@@ -221,6 +222,9 @@ def main(argv: list[str] | None = None) -> int:
             from .jobs.demo import run_demo
 
             print(run_demo(quiet=args.quiet))
+    except ParameterError as exc:
+        print(f"noisecal: error: {exc.as_option()}", file=sys.stderr)
+        return EXIT_ERROR
     except NoisecalError as exc:
         print(f"noisecal: error: {exc}", file=sys.stderr)
         return EXIT_ERROR

@@ -30,16 +30,55 @@ def matrix(a: np.ndarray) -> list:
     return [[num(v) for v in row] for row in np.asarray(a)]
 
 
+def exact(x) -> float | None:
+    """A float at full precision (YAML writes the shortest text that reads back equal)."""
+    if x is None:
+        return None
+    x = float(x)
+    return x if np.isfinite(x) else None
+
+
 def estimate(e: Estimate) -> dict:
-    """An Estimate as ``{value, ci95, unit, ...}`` or ``{upper_bound, unit, ...}``."""
+    """An Estimate as ``{value, ci95, unit, ...}`` or ``{upper_bound, unit, ...}``.
+
+    Fitted numbers are written at full precision, so a re-check or a reader
+    gets back the very Estimate the job had (:func:`estimate_from`).
+    """
     if e.resolved:
-        out = {"value": num(e.value), "ci95": [num(e.lower), num(e.upper)], "unit": e.unit}
+        out = {"value": exact(e.value), "ci95": [exact(e.lower), exact(e.upper)],
+               "unit": e.unit}
     else:
-        out = {"upper_bound": num(e.upper), "unit": e.unit}
+        out = {"upper_bound": exact(e.upper), "unit": e.unit}
+    if e.level != 0.95:
+        out["level"] = float(e.level)
     if e.tau_range is not None:
-        out["tau_s"] = [num(e.tau_range[0]), num(e.tau_range[1])]
+        out["tau_s"] = [exact(e.tau_range[0]), exact(e.tau_range[1])]
     out["method"] = e.method
     return out
+
+
+def estimate_from(d: dict, unit: str | None = None) -> Estimate:
+    """The Estimate an :func:`estimate` mapping holds (the inverse of :func:`estimate`).
+
+    Parameters
+    ----------
+    d : dict
+        ``{value, ci95, unit, method[, tau_s, level]}`` or ``{upper_bound, unit, ...}``.
+    unit : str, optional
+        Unit to use where the mapping has none.
+
+    Returns
+    -------
+    Estimate
+    """
+    level = float(d.get("level", 0.95))
+    tau = tuple(float(t) for t in d["tau_s"]) if d.get("tau_s") else None
+    u = d.get("unit", unit)
+    if "value" in d:
+        lo, hi = d["ci95"]
+        return Estimate(float(d["value"]), float(lo), float(hi), u, d.get("method", ""),
+                        level, tau)
+    return Estimate.bound(float(d["upper_bound"]), u, d.get("method", ""), level, tau)
 
 
 def curve_table(curve) -> dict:

@@ -25,6 +25,7 @@ from ..ingest import read_recording
 from ..ingest.mapping import MeasurementMap, check_quantity, read_map, same_names
 from ..types import Recording
 from .progress import StageBars
+from .result import JobResult, Parameter, ParameterError, offset_estimate
 
 LAYOUT = "noisecal.motion/1"
 MIN_SAMPLES = 100
@@ -32,7 +33,7 @@ MIN_SAMPLES = 100
 
 
 @dataclass(frozen=True)
-class MotionResult:
+class MotionResult(JobResult):
     """Everything the motion job produced.
 
     Attributes
@@ -59,6 +60,27 @@ class MotionResult:
     covariate_unit: str
     model: MeasurementModel
     sections: dict
+
+    def parameters(self) -> list:
+        """σ and bias per channel (and the variance law's a, b), outlier fraction, latency."""
+        out = []
+        for ch in self.model.channels:
+            out.append(Parameter(ch.name, "sigma", ch.sigma, {}))
+            out.append(Parameter(ch.name, "bias", ch.bias, {"linear": True}))
+            if ch.law:
+                out.append(Parameter(ch.name, "law_a", ch.law["a"], {"power": 2}))
+                out.append(Parameter(ch.name, "law_b", ch.law["b"], {"power": 2}))
+        out.append(Parameter("all", "outlier_fraction", self.model.outlier_fraction,
+                             {"linear": True}))
+        out.append(Parameter("all", "time_offset", offset_estimate(self.alignment),
+                             {"linear": True}))
+        return out
+
+    def _summary(self) -> str:
+        return summary(self)
+
+    def _render(self) -> str:
+        return render(self.sections)
 
 
 def _check_truth_gaps(series, times, path):
@@ -90,10 +112,10 @@ def analyse(sensor: Recording, truth: Recording, mapping: MeasurementMap,
         Command line, for the provenance.
     """
     if not 0.5 < gate_probability < 1:
-        raise InputError(f"--gate {gate_probability}: give a probability between 0.5 and 1, "
-                         "e.g. 0.997")
+        raise ParameterError("gate", gate_probability, "give a probability between 0.5 "
+                             "and 1, e.g. 0.997")
     if not (np.isfinite(max_offset) and max_offset > 0):
-        raise InputError(f"--max-offset {max_offset}: give a positive time in s")
+        raise ParameterError("max_offset", max_offset, "give a positive time in s")
     names = list(mapping.measures)
     series, units = [], []
     for name in names:

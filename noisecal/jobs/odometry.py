@@ -26,6 +26,7 @@ from ..ingest import read_recording
 from ..ingest.mapping import MeasurementMap, OdometryConfig, read_odometry_config
 from ..types import Recording
 from .progress import StageBars
+from .result import JobResult, Parameter, ParameterError, offset_estimate
 
 LAYOUT = "noisecal.odometry/1"
 MIN_WINDOWS = 30
@@ -34,7 +35,7 @@ RATE_SPAN_S = 0.2
 
 
 @dataclass(frozen=True)
-class OdometryResult:
+class OdometryResult(JobResult):
     """Everything the odometry job produced.
 
     Attributes
@@ -60,6 +61,21 @@ class OdometryResult:
     slow_check: dict | None
     step: dict
     sections: dict
+
+    def parameters(self) -> list:
+        """α1…α4 (variance coefficients) and the latency."""
+        out = [Parameter("odometry", k, self.model.alpha[k], {"power": 2})
+               for k in ("alpha1", "alpha2", "alpha3", "alpha4")]
+        out.append(Parameter("all", "time_offset", offset_estimate(self.alignment),
+                             {"linear": True}))
+        return out
+
+    def _summary(self) -> str:
+        return summary(self)
+
+    def _render(self) -> str:
+        return yaml_block.render(self.sections, f"noisecal odometry against truth ({LAYOUT})",
+                                 _COMMENTS)
 
 
 def _channel(rec, name, unit, where):
@@ -153,7 +169,7 @@ def analyse(odo: Recording, truth: Recording, cfg: OdometryConfig, max_offset: f
             command: str = "") -> OdometryResult:
     """Fit the odometry model of a drive against truth."""
     if not (np.isfinite(max_offset) and max_offset > 0):
-        raise InputError(f"--max-offset {max_offset}: give a positive time in s")
+        raise ParameterError("max_offset", max_offset, "give a positive time in s")
     bounds, motion, (tm, speed, turn, span), window_s, track = _odometry_motion(odo, cfg)
     mapping = MeasurementMap({}, cfg.pose, source=cfg.source)
     where = f"{cfg.source}, pose"

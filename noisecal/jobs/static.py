@@ -31,6 +31,7 @@ from ..ingest import read_recording
 from ..types import AllanCurve, ChannelModel, FilterBlock, Recording
 from ..units import customary
 from .progress import StageBars, progress_bar
+from .result import JobResult, Parameter
 
 MIN_SAMPLES = 1024
 """Fewest contiguous samples: gives an octave curve of nine points (τ0 … 256 τ0)."""
@@ -40,30 +41,99 @@ DEFAULT_SEED = 1
 
 
 @dataclass(frozen=True)
-class StaticResult:
+class ChannelResult:
+    """Everything the static job found for one channel.
+
+    Attributes
+    ----------
+    model : ChannelModel
+        Terms, Gauss–Markov bias, fit, model check and turn-on bias.
+    dense : AllanCurve
+        Dense-grid overlapping ADEV (for the plot).
+    hadamard : AllanCurve
+        Dense-grid overlapping Hadamard deviation (drift-insensitive).
+    psd : PsdCheck
+        Welch PSD: white level, roll-off, lines.
+    """
+
+    model: ChannelModel
+    dense: AllanCurve
+    hadamard: AllanCurve
+    psd: object
+
+
+@dataclass(frozen=True)
+class StaticResult(JobResult):
     """Everything the static job produced.
 
     Attributes
     ----------
     recording : Recording
-    models : list of ChannelModel
-    dense : list of AllanCurve
-        Dense-grid overlapping ADEV per channel (for the plot).
-    hadamard : list of AllanCurve
-        Dense-grid overlapping Hadamard deviation per channel (drift-insensitive).
-    psd : list of PsdCheck
+    channels : dict of str to ChannelResult
+        Per channel, in the filter order.
     block : FilterBlock
     sections : dict
-        The YAML content as a mapping.
+        The YAML content as a mapping (a view of the typed values above).
+    reps, seed : int
+        Bootstrap replicates and seed.
+
+    Examples
+    --------
+    >>> import numpy as np, noisecal
+    >>> y = np.random.default_rng(0).normal(0.0, 1e-3, 4096)
+    >>> rec = noisecal.read({"gyro_x": y}, period=0.01, units={"gyro_x": "rad/s"})
+    >>> res = noisecal.static(rec, reps=40, seed=3)
+    >>> est = res.estimate("gyro_x", "white_noise")
+    >>> est.resolved, est.unit
+    (True, 'rad/s/Hz^0.5')
+    >>> bool(est.lower < 1e-4 < est.upper)   # N = 1e-3 · sqrt(0.01)
+    True
+    >>> lo, hi = res.confidence_interval("gyro_x", "white_noise", level=0.90).lower, est.lower
+    >>> bool(lo > hi)
+    True
     """
 
     recording: Recording
-    models: list
-    dense: list
-    hadamard: list
-    psd: list
+    channels: dict
     block: FilterBlock
     sections: dict
+    reps: int = DEFAULT_REPS
+    seed: int = DEFAULT_SEED
+
+    @property
+    def models(self) -> list:
+        """ChannelModel per channel, in order."""
+        return [c.model for c in self.channels.values()]
+
+    @property
+    def dense(self) -> list:
+        return [c.dense for c in self.channels.values()]
+
+    @property
+    def hadamard(self) -> list:
+        return [c.hadamard for c in self.channels.values()]
+
+    @property
+    def psd(self) -> list:
+        return [c.psd for c in self.channels.values()]
+
+    def parameters(self) -> list:
+        """The five IEEE Std 952 terms of every channel (full precision)."""
+        return [Parameter(name, term, c.model.terms[term], {})
+                for name, c in self.channels.items() for term in TERM_NAMES]
+
+    def _summary(self) -> str:
+        return summary(self)
+
+    def _render(self) -> str:
+        return yaml_block.render(self.sections)
+
+    def _at_level(self, channel: str, name: str, level: float):
+        """A resolved term's interval from the same bootstrap at another level."""
+        model = self.channels[channel].model
+        if name not in TERM_NAMES or model.fit is None:
+            return None
+        return term_estimates(model.fit, model.curve, level)[name]
 
 
 def select_channels(rec: Recording, channels: list[str] | None) -> list[str]:
@@ -117,21 +187,19 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
     names = select_channels(rec, channels)
     check_length(rec)
     if reps < 20:
-        raise InputError(f"--reps {reps}: at least 20 bootstrap replicates are needed "
-                         "for a 95 % interval; 200 is the default")
+        raise ParameterError("reps", reps, "at least 20 bootstrap replicates are needed "
+                             "for a 95 % interval; 200 is the default")
     step = rec.period if dt is None else dt
     if not (np.isfinite(step) and step > 0):
-        raise InputError(f"--dt {dt}: not a positive time step; give seconds, e.g. --dt 0.01")
+        raise ParameterError("dt", dt, "not a positive time step; give seconds, e.g. 0.01")
     for name in names:
         if np.ptp(rec.channel(name)) == 0:
             raise AnalysisError(f"{rec.source.path}, column {name!r}: the channel is "
                                 "constant; leave it out with --channels")
-    models, dense, hadamard, psd = [], [], [], []
     with progress_bar(total=2 * reps * len(names), desc="bootstrap", quiet=quiet) as bar:
-        for i, name in enumerate(names):
-            out = _channel(rec, name, reps, seed + i, bar)
-            for acc, item in zip((models, dense, hadamard, psd), out):
-                acc.append(item)
+        per = {name: ChannelResult(*_channel(rec, name, reps, seed + i, bar))
+               for i, name in enumerate(names)}
+    models = [c.model for c in per.values()]
     block = filter_block(models, step)
     sections = _sections(rec, models, psd, block, seed, reps, command)
     return StaticResult(rec, models, dense, hadamard, psd, block, sections)
@@ -344,7 +412,10 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
         rec = read_recording(path, repair=repair, use_cache=use_cache, progress=bars)
     finally:
         bars.close()
-    result = characterise(rec, channels, dt, reps, seed, quiet, command)
+    from ..api import static
+
+    result = static(rec, channels=channels, dt=dt, reps=reps, seed=seed, progress=not quiet,
+                    command=command)
     allan_figure(result.models, result.dense, result.hadamard, plot_path,
                  f"{Path(path).name} — overlapping Allan deviation, 95 % intervals, fitted terms")
     write_text(out_path, yaml_block.render(result.sections))

@@ -22,6 +22,7 @@ from ..fit.camera import CameraModel, fit_camera
 from ..fit.measurement import GATE_PROBABILITY
 from ..ingest.camera import Camera, Detections, Survey, check_homography, read_camera, \
     read_detections, read_survey
+from .result import JobResult, Parameter, ParameterError
 
 LAYOUT = "noisecal.targets/1"
 FLOOR_Z_M = 0.01
@@ -30,7 +31,7 @@ GROUND_METHODS = ("ray", "homography", "dlt")
 
 
 @dataclass(frozen=True)
-class TargetsResult:
+class TargetsResult(JobResult):
     """Everything the targets job produced.
 
     Attributes
@@ -53,6 +54,21 @@ class TargetsResult:
     ground: str
     model: CameraModel
     sections: dict
+
+    def parameters(self) -> list:
+        """Pixel σ of u and v (the whole R) and the outlier fraction."""
+        more = {"more_of": "targets (the spread between targets limits the systematic part)"}
+        out = [Parameter("pixel", k, self.model.sigma[k], more) for k in ("u", "v")]
+        out.append(Parameter("all", "outlier_fraction", self.model.pixel.outlier_fraction,
+                             {"linear": True}))
+        return out
+
+    def _summary(self) -> str:
+        return summary(self)
+
+    def _render(self) -> str:
+        return yaml_block.render(self.sections, f"noisecal camera against surveyed targets "
+                                 f"({LAYOUT})", _COMMENTS)
 
 
 def estimate_ground_homography(camera: Camera, survey: Survey, det: Detections) -> np.ndarray:
@@ -124,9 +140,9 @@ def analyse(camera: Camera, survey: Survey, det: Detections, ground: str = "ray"
             command: str = "") -> TargetsResult:
     """Fit the camera's noise and build the YAML sections."""
     if ground not in GROUND_METHODS:
-        raise InputError(f"--ground {ground!r}: use one of {', '.join(GROUND_METHODS)}")
+        raise ParameterError("ground", ground, f"use one of {', '.join(GROUND_METHODS)}")
     if not 0.5 < gate_probability < 1:
-        raise InputError(f"--gate {gate_probability}: give a probability between 0.5 and 1")
+        raise ParameterError("gate", gate_probability, "give a probability between 0.5 and 1")
     if camera.R.ndim == 3:
         projected = np.array([np.median(geo.project(
             np.repeat(survey.xyz[k:k + 1], int(np.count_nonzero(hit)), 0),

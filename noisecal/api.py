@@ -1,0 +1,300 @@
+"""The Python API: read a recording, run a job, get a typed result.
+
+Every function takes keyword-only options, checks them at the call and names
+the Python parameter in its error (:class:`~noisecal.jobs.result.ParameterError`,
+a ``ValueError``); the command line maps its options onto these calls. Each
+job returns a frozen result with ``summary()``, ``to_dict()``, ``write(path)``,
+``parameters()``, ``estimate(channel, name)`` and ``confidence_interval(channel,
+name, level=…)``.
+
+Examples
+--------
+>>> import numpy as np, noisecal
+>>> y = np.random.default_rng(1).normal(0.0, 2e-3, 8192)
+>>> rec = noisecal.read({"gyro_x": y}, period=0.01, units={"gyro_x": "rad/s"})
+>>> rec.channels, rec.period
+(('gyro_x',), 0.01)
+>>> res = noisecal.static(rec, reps=40, seed=3)
+>>> d = res.to_dict()["channels"]["gyro_x"]["white_noise"]
+>>> sorted(d)[:3]
+['ci95', 'method', 'tau_s']
+>>> noisecal.static(rec, reps=5)
+Traceback (most recent call last):
+...
+noisecal.jobs.result.ParameterError: reps=5: at least 20 bootstrap replicates are needed for a 95 % interval; 200 is the default
+"""
+
+from __future__ import annotations
+
+import numbers
+from pathlib import Path
+
+import numpy as np
+
+from .jobs.result import ParameterError
+from .types import Recording
+
+__all__ = ["read", "static", "motion", "odometry", "targets", "recheck", "ParameterError"]
+
+
+def _int(name: str, value, lowest: int) -> int:
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        raise ParameterError(name, value, "give a whole number")
+    if value < lowest:
+        raise ParameterError(name, value, f"give at least {lowest}")
+    return int(value)
+
+
+def _positive(name: str, value, none_ok: bool = True) -> float | None:
+    if value is None and none_ok:
+        return None
+    if isinstance(value, bool) or not isinstance(value, numbers.Real) or not (
+            np.isfinite(value) and value > 0):
+        raise ParameterError(name, value, "give a positive number of seconds")
+    return float(value)
+
+
+def _probability(name: str, value) -> float:
+    if isinstance(value, bool) or not isinstance(value, numbers.Real) or not 0.5 < value < 1:
+        raise ParameterError(name, value, "give a probability between 0.5 and 1, e.g. 0.997")
+    return float(value)
+
+
+def _recording(name: str, value, use_cache: bool = True) -> Recording:
+    """A Recording given as one, or a path read with the file readers."""
+    if isinstance(value, Recording):
+        return value
+    if isinstance(value, (str, Path)):
+        from .ingest import read_recording
+
+        return read_recording(value, use_cache=use_cache)
+    raise ParameterError(name, type(value).__name__, "give a path or a noisecal Recording "
+                         "(noisecal.read)")
+
+
+def _path(name: str, value) -> str:
+    if not isinstance(value, (str, Path)):
+        raise ParameterError(name, type(value).__name__, "give a file path")
+    return str(value)
+
+
+def read(source, *, period: float | None = None, units: dict | None = None,
+         time=None, repair: str | None = None, cache: bool = True) -> Recording:
+    """A recording from a file, or from arrays in memory.
+
+    Parameters
+    ----------
+    source : str, Path or mapping of str to array_like
+        A CSV, Parquet or .npz file (columns ``name [unit]``, time first), or
+        channel name → samples, shape (n,).
+    period : float, optional
+        Sample period, s, for arrays without ``time``.
+    units : mapping of str to str, optional
+        Unit of each array (required for arrays), e.g. ``"deg/s"``, ``"g"``.
+    time : array_like, shape (n,), optional
+        Sample times of the arrays, s.
+    repair : {None, "sort", "drop"}
+        Timestamp repair of a file (recorded in its provenance).
+    cache : bool
+        Use the binary cache of validated files.
+
+    Returns
+    -------
+    Recording
+        SI samples, times in s from the first sample, gaps and provenance.
+
+    Examples
+    --------
+    >>> import numpy as np, noisecal
+    >>> rec = noisecal.read({"acc_z": np.full(100, 1.0)}, period=0.1, units={"acc_z": "g"})
+    >>> float(rec.channel("acc_z")[0]), rec.unit_of("acc_z")
+    (9.80665, 'm/s**2')
+    """
+    if repair not in (None, "sort", "drop"):
+        raise ParameterError("repair", repair, "give None, 'sort' or 'drop'")
+    if isinstance(source, (str, Path)):
+        if period is not None or units is not None or time is not None:
+            raise ParameterError("period", period, "a file names its own time column and "
+                                 "units; give period/units/time only with arrays")
+        from .ingest import read_recording
+
+        return read_recording(source, repair=repair, use_cache=bool(cache))
+    from .ingest.arrays import read_arrays
+
+    return read_arrays(source, _positive("period", period), units, time)
+
+
+def static(recording, *, channels: list[str] | None = None, dt: float | None = None,
+           reps: int = 200, seed: int = 1, progress: bool = False, command: str = ""):
+    """Characterise a recording made at rest: IEEE Std 952 terms, Q and R.
+
+    Parameters
+    ----------
+    recording : Recording or path
+    channels : list of str, optional
+        Channels in the filter's order (default all).
+    dt : float, optional
+        Filter time step, s (default the sample period).
+    reps : int
+        Bootstrap replicates (at least 20).
+    seed : int
+        Bootstrap seed (channel i uses seed + i).
+    progress : bool
+        Show a progress bar on a terminal.
+    command : str
+        Command line for the provenance.
+
+    Returns
+    -------
+    StaticResult
+    """
+    from .jobs.static import characterise
+
+    rec = _recording("recording", recording)
+    if reps is None or isinstance(reps, bool) or not isinstance(reps, numbers.Integral) \
+            or reps < 20:
+        raise ParameterError("reps", reps, "at least 20 bootstrap replicates are needed for "
+                             "a 95 % interval; 200 is the default")
+    seed = _int("seed", seed, 0)
+    dt = _positive("dt", dt)
+    if channels is not None:
+        if isinstance(channels, str) or not all(isinstance(c, str) for c in channels):
+            raise ParameterError("channels", channels, "give a list of channel names")
+        missing = [c for c in channels if c not in rec.channels]
+        if missing:
+            raise ParameterError("channels", channels, f"{', '.join(missing)} not in the "
+                                 f"recording; its channels are {', '.join(rec.channels)}")
+    return characterise(rec, list(channels) if channels else None, dt, int(reps), seed,
+                        not progress, command)
+
+
+def motion(recording, *, truth, map: str | None = None, covariate: str | None = None,
+           gate: float = 0.997, max_offset: float = 1.0, seed: int = 1, command: str = ""):
+    """Measurement noise of a sensor against ground truth (R, gate, outliers, laws).
+
+    Parameters
+    ----------
+    recording, truth : Recording or path
+    map : str, optional
+        Measurement-map YAML (default: channels with the same names).
+    covariate : str, optional
+        Truth quantity for the variance law σ² = a + b·x².
+    gate : float
+        Probability of the chi-square gate.
+    max_offset : float
+        Largest sensor–truth time offset searched, s.
+    seed : int
+    command : str
+
+    Returns
+    -------
+    MotionResult
+    """
+    from .ingest.mapping import read_map, same_names
+    from .jobs.motion import analyse
+
+    sensor, tr = _recording("recording", recording), _recording("truth", truth)
+    gate = _probability("gate", gate)
+    max_offset = _positive("max_offset", max_offset, none_ok=False)
+    seed = _int("seed", seed, 0)
+    if covariate is not None and not isinstance(covariate, str):
+        raise ParameterError("covariate", covariate, "give a truth quantity name, e.g. 'speed'")
+    mapping = (read_map(_path("map", map), covariate) if map is not None
+               else same_names(sensor.channels, tr.channels, covariate))
+    return analyse(sensor, tr, mapping, gate, max_offset, seed, command)
+
+
+def odometry(recording, *, truth, config, max_offset: float = 1.0, command: str = ""):
+    """Wheel-odometry noise α1…α4 against ground truth.
+
+    Parameters
+    ----------
+    recording, truth : Recording or path
+    config : str
+        Odometry config YAML (encoder geometry, channels).
+    max_offset : float
+        Largest time offset searched, s.
+    command : str
+
+    Returns
+    -------
+    OdometryResult
+    """
+    from .ingest.mapping import read_odometry_config
+    from .jobs.odometry import analyse
+
+    odo, tr = _recording("recording", recording), _recording("truth", truth)
+    cfg = read_odometry_config(_path("config", config))
+    return analyse(odo, tr, cfg, _positive("max_offset", max_offset, none_ok=False), command)
+
+
+def targets(detections, *, survey, camera, poses=None, ground: str = "ray",
+            gate: float = 0.997, seed: int = 1, command: str = ""):
+    """Camera measurement noise from detections of surveyed targets.
+
+    Parameters
+    ----------
+    detections, survey, camera : str
+        Detections CSV, survey CSV, camera YAML.
+    poses : Recording or path, optional
+        Per-frame platform poses for a moving camera.
+    ground : {"ray", "homography", "dlt"}
+    gate : float
+    seed : int
+    command : str
+
+    Returns
+    -------
+    TargetsResult
+    """
+    from .ingest.camera import read_camera, read_detections, read_survey
+    from .jobs.targets import GROUND_METHODS, analyse, posed_camera
+
+    if ground not in GROUND_METHODS:
+        raise ParameterError("ground", ground, f"give one of {', '.join(GROUND_METHODS)}")
+    cam = read_camera(_path("camera", camera))
+    sv = read_survey(_path("survey", survey))
+    det = read_detections(_path("detections", detections), sv, cam)
+    if poses is not None:
+        cam = posed_camera(cam, _recording("poses", poses), det)
+    return analyse(cam, sv, det, ground, _probability("gate", gate), _int("seed", seed, 0),
+                   command)
+
+
+def recheck(baseline, recording, *, truth=None, limits: str | None = None,
+            tolerance: float = 1.25, alpha: float = 0.01, command: str = ""):
+    """Re-run a baseline's job on a new recording and compare every parameter.
+
+    Parameters
+    ----------
+    baseline : str
+        The baseline YAML block.
+    recording : str
+        The new recording (detections for a camera baseline).
+    truth : str, optional
+        The new drive's truth (motion and odometry baselines).
+    limits : str, optional
+        Engineering limits YAML.
+    tolerance : float
+        Ratio (in σ) a parameter must be able to reveal to be called consistent.
+    alpha : float
+        Family-wise false-alarm rate (Holm).
+    command : str
+
+    Returns
+    -------
+    RecheckResult
+        ``verdict`` and ``exit_status`` (0 consistent, 1 changed, 3 inconclusive).
+    """
+    from .jobs.recheck import recheck as run
+
+    if isinstance(tolerance, bool) or not isinstance(tolerance, numbers.Real) or \
+            not tolerance > 1:
+        raise ParameterError("tolerance", tolerance, "give a ratio above 1, e.g. 1.25")
+    if isinstance(alpha, bool) or not isinstance(alpha, numbers.Real) or not 0 < alpha < 0.5:
+        raise ParameterError("alpha", alpha, "give a false-alarm rate between 0 and 0.5, "
+                             "e.g. 0.01")
+    return run(_path("baseline", baseline), _path("recording", recording),
+               None if truth is None else _path("truth", truth),
+               None if limits is None else _path("limits", limits), float(tolerance),
+               command=command, alpha=float(alpha))
