@@ -316,8 +316,12 @@ def replicate_avar(model: RateModel, expected, period: float, m: np.ndarray,
         block = np.empty((count, k))
         for cols, p, length, starts, stops, ms in levels:
             part = np.empty((count, ms.shape[0]))
-            engine.oavar_records(rng, model.params(p), length, starts, stops, ms,
-                                 model.flicker_batch(count, p, length, rng), part)
+            # Flicker spectra one record at a time: a chunk's worth held 25 MB per thread.
+            step = 1 if model.c2[2] > 0 else count
+            for r in range(0, count, step):
+                engine.oavar_records(rng, model.params(p), length, starts, stops, ms,
+                                     model.flicker_batch(step, p, length, rng),
+                                     part[r:r + step])
             block[:, cols] = part
         return block
 
