@@ -201,8 +201,9 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
                for i, name in enumerate(names)}
     models = [c.model for c in per.values()]
     block = filter_block(models, step)
-    sections = _sections(rec, models, psd, block, seed, reps, command)
-    return StaticResult(rec, models, dense, hadamard, psd, block, sections)
+    sections = _sections(rec, models, [c.psd for c in per.values()], block, seed, reps,
+                         command)
+    return StaticResult(rec, per, block, sections, reps, seed)
 
 
 def _channel(rec: Recording, name: str, reps: int, seed: int, bar):
