@@ -103,6 +103,21 @@ def _parser() -> argparse.ArgumentParser:
                    "(default 1.25)")
     r.add_argument("--alpha", type=float, default=0.01,
                    help="family-wise false-alarm rate, Holm-corrected (default 0.01)")
+    r.add_argument("--verdict-on", metavar="WHAT", default="all",
+                   help="what the verdict and exit status rest on: all (default), decidable "
+                   "(what this recording can decide; the rest is listed with the data it "
+                   "needs) or channel.parameter names, comma-separated")
+    r.add_argument("--at", metavar="X[,X...]", help="also compare a variance law's sigma at "
+                   "these covariate values (SI), e.g. --at 10,30 for ranges in m")
+    for key, what in (("map", "measurement map"), ("config", "odometry config"),
+                      ("camera", "camera file"), ("survey", "survey")):
+        r.add_argument(f"--{key}", help=f"the baseline's {what}, where it is not found as "
+                       "stored (relative to the baseline's folder)")
+    r.add_argument("--poses", help="the new session's platform poses (a baseline from a "
+                   "moving camera)")
+    r.add_argument("--accept-edited", action="store_true",
+                   help="accept a baseline whose checksum fails (an intended hand edit); "
+                   "recorded in the output, stated values compared")
     r.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     r.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
     _history_options(r)
@@ -190,10 +205,19 @@ def main(argv: list[str] | None = None) -> int:
         elif args.command == "recheck":
             from .jobs.recheck import run_recheck, summary as recheck_summary
 
+            try:
+                at = ([float(x) for x in args.at.split(",")] if args.at else None)
+            except ValueError:
+                raise InputError(f"--at {args.at}: give numbers separated by commas, "
+                                 "e.g. 10,30") from None
+            files = {k: getattr(args, k) for k in ("map", "config", "camera", "survey")
+                     if getattr(args, k)}
             result = run_recheck(args.baseline, args.recording, args.output, args.truth,
                                  args.limits, args.tolerance, args.overwrite,
                                  use_cache=not args.no_cache, command=command,
-                                 alpha=args.alpha)
+                                 alpha=args.alpha, files=files, poses=args.poses,
+                                 accept_edited=args.accept_edited,
+                                 verdict_on=args.verdict_on, at=at)
             print(recheck_summary(result))
             if args.output:
                 print(f"wrote {args.output}")

@@ -6,6 +6,10 @@ own; its version is in ``layout``.
 
 from __future__ import annotations
 
+import hashlib
+import json
+from pathlib import Path
+
 import numpy as np
 import yaml
 
@@ -163,8 +167,61 @@ def _represent_list(dumper, data):
 _Dumper.add_representer(list, _represent_list)
 
 
-def render(sections: dict, title: str | None = None, comments: dict | None = None) -> str:
-    """YAML text with a comment above each top-level section.
+CHECKSUM = "checksum"
+"""Last section of every block: ``sha256:<hex>`` of the sections above (:func:`digest`)."""
+SIDE_FILES = ("map", "config", "camera", "survey")
+"""Provenance keys naming side files a re-check reads again (paths, or a marker
+such as ``(same names)`` that names no file)."""
+
+
+def side_file(path) -> str:
+    """A side file's path for the provenance: absolute, so that the block works from
+    any folder; :func:`render` with ``out`` makes it relative to the block's folder."""
+    text = str(path)
+    if text.startswith("("):  # "(same names)": no file
+        return text
+    return str(Path(text).resolve())
+
+
+def digest(sections: dict) -> str:
+    """``sha256:<hex>`` of the sections as read back from YAML, dumped as canonical
+    JSON (keys sorted, no spaces): comments and layout of the text do not count, any
+    changed value, key or list does. The ``checksum`` section itself is left out."""
+    body = {k: v for k, v in sections.items() if k != CHECKSUM}
+    text = json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                      default=str)
+    return "sha256:" + hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def verify(doc: dict) -> str:
+    """Whether a parsed block matches its checksum: ``ok``, ``missing`` or ``mismatch``."""
+    stored = doc.get(CHECKSUM)
+    if not isinstance(stored, str):
+        return "missing"
+    return "ok" if stored == digest(doc) else "mismatch"
+
+
+def _relative_side_files(sections: dict, folder: Path) -> dict:
+    """The sections with provenance side-file paths relative to ``folder``."""
+    import os
+
+    prov = sections.get("provenance")
+    if not isinstance(prov, dict):
+        return sections
+    new = dict(prov)
+    for key in SIDE_FILES:
+        value = prov.get(key)
+        if isinstance(value, str) and not value.startswith("("):
+            try:
+                new[key] = Path(os.path.relpath(Path(value).resolve(), folder)).as_posix()
+            except ValueError:  # another drive (Windows): keep it absolute
+                pass
+    return {**sections, "provenance": new}
+
+
+def render(sections: dict, title: str | None = None, comments: dict | None = None,
+           out=None) -> str:
+    """YAML text with a comment above each top-level section, and a checksum last.
 
     Parameters
     ----------
@@ -174,8 +231,21 @@ def render(sections: dict, title: str | None = None, comments: dict | None = Non
         First comment line (default: the static block's).
     comments : dict, optional
         Section name → comment (default: the static block's).
+    out : path, optional
+        Where the text will be written: side files named in the provenance are then
+        stored relative to its folder, so a folder moved whole keeps working.
     """
     comments = _COMMENTS if comments is None else comments
+    if out is not None:
+        sections = _relative_side_files(sections, Path(out).resolve().parent)
+    # The checksum covers the values as a reader gets them back, so round trip first.
+    body = {k: v for k, v in sections.items() if k != CHECKSUM}
+    stamp = digest(yaml.safe_load(yaml.dump(body, Dumper=_Dumper, sort_keys=False,
+                                            allow_unicode=True)))
+    sections = {**body, CHECKSUM: stamp}
+    comments = {**comments, CHECKSUM: comments.get(CHECKSUM, (
+        "SHA-256 of the sections above (canonical JSON, keys sorted). A re-check refuses\n"
+        "a block that does not match: re-run it, or accept an edit with --accept-edited."))}
     lines = [f"# {title or f'noisecal static characterisation ({LAYOUT})'}",
              "# Values are SI. Intervals are 95 % unless stated.", ""]
     for key, value in sections.items():

@@ -8,8 +8,11 @@ sample sizes) — and otherwise a z-test on the log scale from the two 95 %
 intervals. The p-values are corrected for multiple comparisons by Holm's
 step-down method. A parameter whose difference is not significant is
 ``consistent`` only if the data could have seen a change of ``tolerance``
-(80 % power); otherwise it is ``inconclusive``, with how many times longer a
-recording would decide it.
+(80 % power); otherwise it is ``inconclusive``, with how many times more data
+(and of what kind: a longer new recording, or a longer baseline when the
+baseline's own interval is too wide for any new recording to help) would
+decide it. The overall verdict can be gated on chosen parameters, or on those
+this recording can decide (:func:`overall`).
 
 References
 ----------
@@ -59,6 +62,8 @@ class Comparison:
     more_of : str
         What "more data" means for this parameter (``recording`` length, or
         ``targets`` where the spread between targets limits it).
+    gated : bool
+    limited_by : str
     """
 
     channel: str
@@ -77,6 +82,11 @@ class Comparison:
     longer: float | None = None
     within_spec: bool | None = None
     more_of: str = "recording"
+    gated: bool = True
+    limited_by: str = "new"
+    """``baseline`` where the baseline's own interval is too wide for any new data to
+    decide: re-characterise, and re-check, both with ``longer`` times more data."""
+    """Whether the parameter counts in the overall verdict (see :func:`overall`)."""
 
 
 def f_test(var_a: float, dof_a: float, var_b: float, dof_b: float) -> float:
@@ -126,7 +136,10 @@ def compare_estimates(channel: str, name: str, base: dict, new: dict,
     bb, nb = base.get("upper_bound"), new.get("upper_bound")
     row = {"channel": channel, "name": name, "unit": unit, "baseline": bv, "new": nv,
            "baseline_bound": bb, "new_bound": nb, "ratio": None, "test": "", "p_value": None,
-           "se_log": None, "higher_is_worse": higher_is_worse}
+           "se_log": None, "se_base": None, "se_new": None,
+           "higher_is_worse": higher_is_worse}
+    if bv is not None:
+        row["se_base"] = _se_from_ci(base)  # for how much more data a verdict needs
     if bv is None or nv is None:
         row["test"] = "not resolved in both: bounds compared"
         return row
@@ -143,7 +156,9 @@ def compare_estimates(channel: str, name: str, base: dict, new: dict,
         vb, db, vn, dn = f_dof
         row["test"] = f"F-test of variances ({dn:.4g}, {db:.4g} dof)"
         row["p_value"] = f_test(vb, db, vn, dn)
-        row["se_log"] = float(0.5 * np.sqrt(2 / db + 2 / dn))  # of log σ
+        # Of log σ; the two shares kept apart to say which recording limits a verdict.
+        row["se_base"], row["se_new"] = float(0.5 * np.sqrt(2 / db)), float(0.5 * np.sqrt(2 / dn))
+        row["se_log"] = float(np.hypot(row["se_base"], row["se_new"]))
         return row
     sb, sn = _se_from_ci(base), _se_from_ci(new)
     if sb is None or sn is None or not bv > 0 or not nv > 0:
@@ -157,13 +172,101 @@ def compare_estimates(channel: str, name: str, base: dict, new: dict,
     z = (np.log(nv) - np.log(bv)) / se
     row["test"] = "z-test of log ratio from the two 95 % intervals"
     row["p_value"] = float(2 * stats.norm.sf(abs(z)))
-    row["se_log"] = se
+    row["se_log"], row["se_base"], row["se_new"] = se, sb, sn
     return row
 
 
+def law_sigma(a: dict, b: dict, x: float, x_unit: str = "") -> dict:
+    """σ(x) = √(a + b·x²) of a variance law as an estimate dict, for a comparison at a
+    stated covariate value.
+
+    The interval is Wald on σ² from the half-widths of a's and b's intervals taken
+    as independent. The fit's a and b are negatively correlated (both columns share
+    the intercept's information), so this overstates the spread: a conservative test
+    (fewer false alarms, less power). A coefficient only bounded gives a bound.
+    """
+    unit = a.get("unit", "").replace("(", "").split(")^2")[0]
+    if "value" not in a or "value" not in b:
+        ub = [e.get("value", e.get("upper_bound")) for e in (a, b)]
+        if None in ub:
+            return {"unit": unit}
+        return {"upper_bound": float(np.sqrt(ub[0] + ub[1] * x * x)), "unit": unit}
+    var = a["value"] + b["value"] * x * x
+    half = [(e["ci95"][1] - e["ci95"][0]) / 2 for e in (a, b)]
+    spread = float(np.hypot(half[0], half[1] * x * x))
+    lo, hi = max(var - spread, 0.0), var + spread
+    return {"value": float(np.sqrt(var)), "ci95": [float(np.sqrt(lo)), float(np.sqrt(hi))],
+            "unit": unit, "method": f"law at {x:g} {x_unit}".rstrip()}
+
+
+ONE_OCTAVE = 2.0
+"""More data asked for when no interval says how much: one more octave of τ (or twice
+the targets), the least that adds information where a term is only bounded."""
+
+
+def _more_data(r: dict, need_se: float):
+    """(factor, limited_by) of more data that would decide row ``r`` at the tolerance.
+
+    ``need_se`` is the largest standard error of the log ratio that the tolerance
+    allows at 80 % power. The baseline's share of the error does not shrink with a
+    longer new recording: where it alone exceeds ``need_se`` the baseline must be
+    re-characterised (``baseline``: both runs with ``factor`` times more data).
+    The factor is always above 1.
+    """
+    kind = "new"
+    sb, sn = r.get("se_base"), r.get("se_new")
+    if sb is not None and sb >= need_se:
+        share = sb ** 2 + (sn if sn is not None else sb) ** 2
+        return float(share / need_se ** 2), "baseline"
+    if r["new"] is None:
+        # Resolved before, only bounded now: at least as long as the baseline that
+        # resolved it, and never less than one more octave.
+        lr = r.get("length_ratio")
+        f = lr if lr is not None and lr > 1 else ONE_OCTAVE
+        if sb is not None:
+            f = max(f, sb ** 2 * (lr or 1.0) / (need_se ** 2 - sb ** 2))
+        return float(f), kind
+    if sb is not None and sn is not None:
+        return float(max(sn ** 2 / (need_se ** 2 - sb ** 2), 1.0 + 1e-9)), kind
+    return float((r["se_log"] / need_se) ** 2), kind
+
+
+def overall(comps: list, gate=None) -> str:
+    """Overall verdict of the gated comparisons.
+
+    Parameters
+    ----------
+    comps : list of Comparison
+    gate : None, ``"decidable"`` or set of ``"channel.name"``
+        None: every parameter ('not resolved' ones stay out); ``decidable``: those
+        this recording could decide (inconclusive ones are reported, not counted,
+        and nothing decided at all is inconclusive); a set: only those named, where
+        one that cannot be decided, bounded in both included, is inconclusive.
+    """
+    if isinstance(gate, (set, frozenset)):
+        counted = [c for c in comps if c.gated]
+        if any(c.verdict in ("better", "worse") for c in counted):
+            return "changed"
+        if any(c.verdict in ("inconclusive", "not resolved") for c in counted):
+            return "inconclusive"
+        return "consistent"
+    counted = [c for c in comps if c.gated]
+    if any(c.verdict in ("better", "worse") for c in counted):
+        return "changed"
+    if gate == "decidable":
+        decided = [c for c in counted if c.verdict == "consistent"]
+        return "consistent" if decided else "inconclusive"
+    if any(c.verdict == "inconclusive" for c in counted):
+        return "inconclusive"
+    return "consistent"
+
+
 def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | None = None,
-             alpha: float = ALPHA):
+             alpha: float = ALPHA, gate=None):
     """Holm-correct the rows' p-values and give each its verdict.
+
+    The Holm family is every tested parameter, whatever the gate: the gate chooses
+    what the overall verdict rests on, not how many tests were made.
 
     Returns
     -------
@@ -182,7 +285,7 @@ def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | No
                 # Resolved before, only bounded now: the new recording cannot tell; a
                 # recording as long as the baseline's resolved it.
                 verdict = "inconclusive"
-                longer = r.get("length_ratio")
+                longer, r = _bounded_more(r, tolerance, alpha, len(rows))
             else:
                 verdict = "not resolved"  # in neither recording: nothing to compare
         elif p_adj < alpha:
@@ -193,16 +296,13 @@ def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | No
             if se is None:  # a signed quantity or an overlap test: nothing to scale
                 verdict = "consistent"
             else:
-                # Detectable change at 80 % power after Holm's first step.
-                z_a = stats.norm.ppf(1 - alpha / (2 * max(1, len(rows))))
-                # The tolerance is a ratio of standard deviations: a variance-like
-                # parameter (power 2: α, a law's coefficients) moves twice as far in log.
-                need = (z_a + POWER_Z) * se / r.get("power", 1)
-                if need <= np.log(tolerance):
+                need_se = _need_se(r, tolerance, alpha, len(rows))
+                if se <= need_se:
                     verdict = "consistent"
                 else:
                     verdict = "inconclusive"
-                    longer = float((need / np.log(tolerance)) ** 2)
+                    longer, limited = _more_data(r, need_se)
+                    r = {**r, "limited_by": limited}
         spec = None
         lim = (limits or {}).get(r["channel"], {}).get(r["name"])
         if lim is not None:
@@ -212,12 +312,28 @@ def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | No
         out.append(Comparison(r["channel"], r["name"], r["unit"], r["baseline"], r["new"],
                               r["baseline_bound"], r["new_bound"], r["ratio"], r["test"],
                               r["p_value"], p_adj, r["se_log"], verdict, longer, spec,
-                              r.get("more_of", "recording")))
-    if any(c.verdict in ("better", "worse") for c in out):
-        overall = "changed"
-    elif any(c.verdict == "inconclusive" for c in out):
-        overall = "inconclusive"
-    else:
-        overall = "consistent"
+                              r.get("more_of", "recording"),
+                              _gated(r, gate), r.get("limited_by", "new")))
     specs = [c.within_spec for c in out if c.within_spec is not None]
-    return out, overall, (all(specs) if specs else None)
+    return out, overall(out, gate), (all(specs) if specs else None)
+
+
+def _gated(r: dict, gate) -> bool:
+    if isinstance(gate, (set, frozenset)):
+        return f"{r['channel']}.{r['name']}" in gate
+    return True
+
+
+def _need_se(r: dict, tolerance: float, alpha: float, m: int) -> float:
+    """Largest standard error of the log ratio that sees a change of ``tolerance`` at
+    80 % power after Holm's first step. The tolerance is a ratio of standard
+    deviations: a variance-like parameter (power 2: α, a law's coefficients) moves
+    twice as far in log."""
+    z_a = stats.norm.ppf(1 - alpha / (2 * max(1, m)))
+    return float(np.log(tolerance) * r.get("power", 1) / (z_a + POWER_Z))
+
+
+def _bounded_more(r: dict, tolerance: float, alpha: float, m: int):
+    """(factor, row with its kind) for a term resolved before and only bounded now."""
+    f, kind = _more_data({**r, "se_new": None}, _need_se(r, tolerance, alpha, m))
+    return f, {**r, "limited_by": kind}

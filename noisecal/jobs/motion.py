@@ -201,7 +201,11 @@ def _sections(res: MotionResult, seed: int, max_offset: float, command: str) -> 
             "tool": f"noisecal {__version__}", "job": "motion", "command": command,
             "date": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
             "input": _input(res.sensor), "truth": _input(res.truth),
-            "map": res.mapping.source, "seed": seed,
+            "map": yaml_block.side_file(res.mapping.source), "seed": seed,
+            # Every setting, so that a re-check runs the same analysis on new data.
+            "settings": {"covariate": res.mapping.covariate,
+                         "gate": float(res.model.gate_probability),
+                         "max_offset_s": float(max_offset), "seed": seed},
         },
         "alignment": {
             "time_offset": {"value": num(a.offset), "ci95": [num(a.lower), num(a.upper)],

@@ -261,7 +261,8 @@ def _sections(res: OdometryResult, max_offset: float, command: str) -> dict:
             "date": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
             "input": {"path": res.odometry.source.path, "sha256": res.odometry.source.sha256},
             "truth": {"path": res.truth.source.path, "sha256": res.truth.source.sha256},
-            "config": cfg.source,
+            "config": yaml_block.side_file(cfg.source),
+            "settings": {"max_offset_s": float(max_offset)},
         },
         "alignment": {
             "time_offset": {"value": num(a.offset), "ci95": [num(a.lower), num(a.upper)],

@@ -308,6 +308,10 @@ def _sections(rec, models, psd, block, seed, reps, command) -> dict:
             "repairs": list(rec.source.repairs),
             "seed": seed,
             "bootstrap_replicates": reps,
+            # Every setting, so that a re-check runs the same analysis on new data.
+            "settings": {"channels": [m.channel for m in models], "dt": float(block.dt),
+                         "repair": next((r.split()[1].rstrip(":") for r in rec.source.repairs
+                                         if r.startswith("--repair ")), None)},
         },
         "recording": yaml_block.recording_section(rec),
         "channels": channels,

@@ -240,7 +240,12 @@ def _sections(res: TargetsResult, seed: int, command: str) -> dict:
             "tool": f"noisecal {__version__}", "job": "targets", "command": command,
             "date": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
             "detections": {"path": res.detections.source, "sha256": res.detections.sha256},
-            "survey": res.survey.source, "camera": res.camera.source, "seed": seed,
+            "survey": yaml_block.side_file(res.survey.source),
+            "camera": yaml_block.side_file(res.camera.source), "seed": seed,
+            # Every setting, so that a re-check runs the same analysis on new data; a
+            # moving camera (one pose per detection) needs the new session's poses.
+            "settings": {"ground": res.ground, "gate": float(res.model.pixel.gate_probability),
+                         "seed": seed, "poses": bool(np.ndim(res.camera.R) == 3)},
         },
         "camera": camera,
     }
