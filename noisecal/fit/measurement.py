@@ -285,7 +285,10 @@ def fit_measurement(r: np.ndarray, names: tuple, units: tuple, period: float,
         for j in range(c):
             law = variance_law(r[inl, j] - r[inl, j].mean(), covariate[inl], float(n), "1", "1")
             if law["b"].resolved:
-                v = law["a"].value + law["b"].value * covariate ** 2
+                # An intercept only bounded: the middle of [0, bound] keeps v > 0 where
+                # the covariate is 0 (a value of None here had raised a TypeError).
+                a = law["a"].value if law["a"].resolved else 0.5 * law["a"].upper
+                v = a + law["b"].value * covariate ** 2
                 scale[:, j] = np.sqrt(v / np.mean(v))
         if np.any(scale != 1):
             robust = min_cov_det(r / scale, seed=seed)
