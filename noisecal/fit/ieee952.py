@@ -239,8 +239,27 @@ class Selection:
         return out
 
 
+def neighbours(cols: tuple[int, ...]) -> list[tuple[int, ...]]:
+    """The structure ``cols``, each with one column fewer, and each with one term more.
+
+    The bootstrap replicates choose among these, so the intervals carry the
+    variability of the selection itself (a replicate that drops or adds a
+    term moves the others), at a tenth of the cost of every structure.
+    """
+    chosen = set(cols)
+    out = [tuple(cols)]
+    for c in cols:
+        if len(chosen) > 1:
+            out.append(tuple(sorted(chosen - {c})))
+    for c in range(5):
+        if c not in chosen and not (c == 0 and 5 in chosen):
+            out.append(tuple(sorted(chosen | {c})))
+    return out
+
+
 def select_structure(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
-                     penalty: float = PENALTY) -> Selection:
+                     penalty: float = PENALTY, band_limit: bool = True,
+                     candidates: list | None = None) -> Selection:
     """The structure of least deviance plus ``penalty`` per term (the simplest of
     those within ``NEAR_TIE`` of the least, and of equally simple ones, one
     without the ramp).
@@ -262,13 +281,19 @@ def select_structure(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
     avar, nu : ndarray, shape (k,)
         Allan variance and EDF of each point.
     penalty : float
+    band_limit : bool
+        Whether structures with the band-limit column are candidates.
+    candidates : list of tuple of int, optional
+        The structures to choose from (default :func:`structures`).
 
     Returns
     -------
     Selection
     """
     ranked, fits = [], {}
-    for cols in structures():
+    for cols in candidates or structures():
+        if 5 in cols and not band_limit:
+            continue
         c = fit_structure(A, avar, nu, cols)
         if np.any(c[list(cols)] <= 0):
             continue
@@ -290,23 +315,38 @@ def select_structure(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
     return Selection(best, fits[best], crit, ranked)
 
 
-def usable_from(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, lower: np.ndarray,
-                upper: np.ndarray) -> tuple[int, Selection]:
+HOLD_LEVEL = 0.99
+"""Per-point level at which the model must hold at the first two fitted points (two
+points at 95 % would reject clean data one time in ten)."""
+
+
+def _holds(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, s: int, c6: np.ndarray) -> bool:
+    """Whether the model lies inside the ``HOLD_LEVEL`` chi-square intervals of points s, s+1."""
+    j = slice(s, s + 2)
+    a = 1.0 - HOLD_LEVEL
+    lo = avar[j] * nu[j] / stats.chi2.ppf(1.0 - a / 2.0, nu[j])
+    hi = avar[j] * nu[j] / stats.chi2.ppf(a / 2.0, nu[j])
+    model = A[j] @ c6
+    return bool(np.all((model >= lo) & (model <= hi)))
+
+
+def usable_from(A: np.ndarray, avar: np.ndarray, nu: np.ndarray) -> tuple[int, Selection]:
     """First Allan point from which the term model holds, and the selection there.
 
-    Starting at the shortest tau, the structure is selected on the points
-    from index s on; s is accepted when the model lies inside the 95 %
-    intervals of its first two points. A sensor's low-pass makes the shortest
-    points fall below any sum of the terms (the band-limit column follows the
-    deficit only beyond a few filter time constants), so they are left out
-    until the curve is a sum of power laws again, and one octave more as a
-    margin. At least ``MIN_POINTS`` points are kept.
+    The five terms alone are tried on every point first; where the model does
+    not hold at the first two points (``HOLD_LEVEL`` chi-square intervals), the
+    band-limit column is allowed as well. A sensor's low-pass makes the
+    shortest points fall below any sum of the terms, and close to its time
+    constant below the band-limit form too, so those points are then left out
+    one by one until the model holds again, plus one octave of margin. At
+    least ``MIN_POINTS`` points are kept. Clean data thus never get the
+    band-limit column, whose collinearity with white noise would only widen N.
 
     Parameters
     ----------
     A : ndarray, shape (k, 6)
-    avar, nu, lower, upper : ndarray, shape (k,)
-        Allan variance, EDF and the deviation's interval bounds.
+    avar, nu : ndarray, shape (k,)
+        Allan variance and EDF of each point.
 
     Returns
     -------
@@ -315,12 +355,14 @@ def usable_from(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, lower: np.ndarr
         Selected on the points ``start:``.
     """
     k = avar.shape[0]
+    sel = select_structure(A, avar, nu, band_limit=False)
+    if _holds(A, avar, nu, 0, sel.c6):
+        return 0, sel
     first = None
     for s in range(max(1, k - MIN_POINTS + 1)):
         sel = select_structure(A[s:], avar[s:], nu[s:])
         first = first or (s, sel)
-        model = A[s:s + 2] @ sel.c6
-        if np.all((model >= lower[s:s + 2] ** 2) & (model <= upper[s:s + 2] ** 2)):
+        if _holds(A, avar, nu, s, sel.c6):
             if s == 0:
                 return s, sel
             # One octave of margin: just past the departure the curve still carries
@@ -343,7 +385,8 @@ class TermFit:
         Fitted [Q², N², B², K², R²], SI. Q² is negative when the band-limit
         column was chosen (−c_L, see :func:`basis6`).
     replicates : ndarray, shape (reps, 5)
-        The same fit on each bootstrap replicate (same structure).
+        The fit of each bootstrap replicate, which chooses among the chosen
+        structure's :func:`neighbours` (zero where it leaves a term out).
     replicate_avar : ndarray, shape (reps, k)
         The replicate curves (Allan variance at the fit taus).
     seed : int
@@ -539,24 +582,20 @@ def fit_terms(curve: AllanCurve, period: float, segments: list[tuple[int, int]],
     """
     A = basis6(curve.taus)
     avar = curve.dev ** 2
-    start, sel = usable_from(A, avar, curve.edf, curve.lower, curve.upper)
+    start, sel = usable_from(A, avar, curve.edf)
     # Select again with each point's EDF for the mixture the first selection found.
     nu = mixture_edf(curve, segments, sel.c6)
-    start, sel = usable_from(A, avar, nu, curve.lower, curve.upper)
+    start, sel = usable_from(A, avar, nu)
     used = np.arange(avar.shape[0]) >= start
     c2 = signed(sel.c6)
     truth = np.maximum(c2, 0.0)
+    # Replicates carry the fitted low-pass, so the band-limit column sees its own kind.
     lag = 2.0 * sel.c6[5] / sel.c6[1] if sel.c6[5] > 0 else 0.0
-
-    def simulate(p, n, rng):
-        y = simulate_rate(truth, p, n, rng)
-        # Replicates carry the fitted low-pass, so the band-limit column sees its own kind.
-        return one_pole(y, p, lag) if lag > 0 else y
-
     sims = replicate_curves(RateModel(truth, low_pass=lag), lambda t: basis6(t) @ sel.c6,
                             period, curve.m, segments, reps, seed, progress)
     Au, nuu = A[used], nu[used]
-    boot6 = np.array([fit_structure(Au, s[used], nuu, sel.cols) for s in sims])
+    near = neighbours(sel.cols)
+    boot6 = np.array([select_structure(Au, s[used], nuu, candidates=near).c6 for s in sims])
     dev_rep = np.array([misfit(Au, s[used], nuu, b) for s, b in zip(sims, boot6)])
     return TermFit(c2=c2, replicates=signed(boot6), replicate_avar=sims, seed=seed,
                    used=used, selection=sel, deviance=misfit(Au, avar[used], nuu, sel.c6),

@@ -30,9 +30,9 @@ def resolved(curve, segments) -> set[int]:
     """Columns reported as numbers, by the fit's own selection path."""
     A = basis6(curve.taus)
     avar = curve.dev ** 2
-    _, sel = usable_from(A, avar, curve.edf, curve.lower, curve.upper)
+    _, sel = usable_from(A, avar, curve.edf)
     nu = mixture_edf(curve, segments, sel.c6)
-    _, sel = usable_from(A, avar, nu, curve.lower, curve.upper)
+    _, sel = usable_from(A, avar, nu)
     return set(sel.cols)
 
 
