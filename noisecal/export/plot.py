@@ -56,11 +56,23 @@ def _panel(ax, model: ChannelModel, dense: AllanCurve, hadamard: AllanCurve) -> 
     ax.plot(dense.taus, dense.dev, color="k", lw=1.2)
     ax.plot(hadamard.taus, hadamard.dev, color="0.45", lw=0.8, ls="-.")
     fit = model.curve
+    used = (model.fit.used if model.fit is not None
+            else np.ones(fit.taus.shape[0], dtype=bool))
+    start = float(fit.taus[used][0])
+    if not used.all():
+        # Taus left out of the fit (the sensor's low-pass): shaded and named.
+        ax.axvspan(dense.taus[0], start / 1.2, color="#fde9c9", lw=0, zorder=0)
+        above = model.check is not None and any(side == "above"
+                                                for _, side in model.check.left_out)
+        why = "the terms do not hold here" if above else "sensor's low-pass"
+        ax.text(0.01, 0.02, f"left out of the fit:\n{why}", fontsize=6.5,
+                transform=ax.transAxes, va="bottom", ha="left", color="#a0522d")
     # Interval bars as one collection and points as one line: errorbar makes three
     # artists per call and caps the eye does not need.
     ax.vlines(fit.taus, fit.lower, fit.upper, color="k", lw=0.8)
-    ax.plot(fit.taus, fit.dev, "o", ms=3, color="k")
-    t = np.logspace(np.log10(dense.taus[0]), np.log10(dense.taus[-1]), 200)
+    ax.plot(fit.taus[used], fit.dev[used], "o", ms=3, color="k")
+    ax.plot(fit.taus[~used], fit.dev[~used], "o", ms=3, mfc="white", color="k")
+    t = np.logspace(np.log10(start), np.log10(dense.taus[-1]), 200)
     A = basis(t)
     lines = []
     for i, name in enumerate(TERM_NAMES):
@@ -75,7 +87,10 @@ def _panel(ax, model: ChannelModel, dense: AllanCurve, hadamard: AllanCurve) -> 
     ax.plot(t, np.sqrt(A @ model.coefficients), color="#ff7f0e", lw=1.6)
     lo, hi = np.nanmin(dense.lower), np.nanmax(dense.upper)
     ax.set_ylim(lo / 3.0, hi * 3.0)
-    ax.set_xlim(t[0], t[-1])
+    ax.set_xlim(dense.taus[0], dense.taus[-1])
+    if model.check is not None and not model.check.consistent:
+        ax.text(0.99, 0.98, "model check: NOT consistent\n" + model.check.cause[:60] + "…",
+                transform=ax.transAxes, va="top", ha="right", fontsize=6.5, color="#c00000")
     # A fixed title height: the automatic one measures every tick label first.
     ax.set_title(f"{model.channel}", y=1.01)
     ax.set_xlabel("averaging time τ [s]")
@@ -96,12 +111,14 @@ def _style_legend(fig) -> None:
                       label="overlapping Hadamard dev. (ignores linear drift)"),
                Line2D([], [], color="k", marker="o", ms=3, lw=0.8,
                       label="fitted points (95 %)"),
+               Line2D([], [], color="k", marker="o", ms=3, mfc="white", lw=0.8,
+                      label="points left out of the fit"),
                Line2D([], [], color="#ff7f0e", lw=1.6, label="fitted model")]
     handles += [Line2D([], [], color=_COLOR[n], lw=1.2, ls="--", label=_LABEL[n])
                 for n in TERM_NAMES]
     handles.append(Line2D([], [], color="0.5", lw=0.9, ls=":",
                           label="dotted: term not resolved, drawn at its upper bound"))
-    fig.legend(handles=handles, loc="upper center", ncol=6, fontsize=7, frameon=False,
+    fig.legend(handles=handles, loc="upper center", ncol=5, fontsize=7, frameon=False,
                bbox_to_anchor=(0.5, 0.985))
 
 
@@ -124,7 +141,7 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
     """
     cols = min(3, len(models))
     rows = int(np.ceil(len(models) / cols))
-    width, height = 5.8 * cols, 6.0 * rows + 0.9
+    width, height = 5.8 * cols, 6.0 * rows + 1.1
     fig = _figure(width, height)
     axes = fig.subplots(rows, cols, squeeze=False)
     for ax, model, curve, had in zip(axes.flat, models, dense, hadamard):
@@ -134,7 +151,7 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
     fig.suptitle(title, fontsize=10, y=0.998)
     _style_legend(fig)
     # Fixed margins in inches (title and legend on top, term text under each panel).
-    fig.subplots_adjust(left=0.75 / width, right=1 - 0.25 / width, top=1 - 0.9 / height,
+    fig.subplots_adjust(left=0.75 / width, right=1 - 0.25 / width, top=1 - 1.1 / height,
                         bottom=1.75 / height, wspace=0.28, hspace=1.75 * rows / height * 1.9)
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=110, format="png")
