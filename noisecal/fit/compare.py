@@ -181,18 +181,24 @@ def law_sigma(a: dict, b: dict, x: float, x_unit: str = "") -> dict:
     stated covariate value.
 
     The interval is Wald on σ² from the half-widths of a's and b's intervals taken
-    as independent. The fit's a and b are negatively correlated (both columns share
+    as independent (an intercept only bounded: anywhere in [0, bound]). The fit's a
+    and b are negatively correlated (both columns share
     the intercept's information), so this overstates the spread: a conservative test
     (fewer false alarms, less power). A coefficient only bounded gives a bound.
     """
     unit = a.get("unit", "").replace("(", "").split(")^2")[0]
-    if "value" not in a or "value" not in b:
+    if "value" not in b or ("value" not in a and a.get("upper_bound") is None):
         ub = [e.get("value", e.get("upper_bound")) for e in (a, b)]
         if None in ub:
             return {"unit": unit}
         return {"upper_bound": float(np.sqrt(ub[0] + ub[1] * x * x)), "unit": unit}
-    var = a["value"] + b["value"] * x * x
-    half = [(e["ci95"][1] - e["ci95"][0]) / 2 for e in (a, b)]
+    if "value" in a:
+        a_mid, a_half = a["value"], (a["ci95"][1] - a["ci95"][0]) / 2
+    else:
+        # An intercept only bounded: anywhere in [0, bound], its middle ± half of it.
+        a_mid = a_half = a["upper_bound"] / 2
+    var = a_mid + b["value"] * x * x
+    half = [a_half, (b["ci95"][1] - b["ci95"][0]) / 2]
     spread = float(np.hypot(half[0], half[1] * x * x))
     lo, hi = max(var - spread, 0.0), var + spread
     return {"value": float(np.sqrt(var)), "ci95": [float(np.sqrt(lo)), float(np.sqrt(hi))],

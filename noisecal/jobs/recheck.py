@@ -171,6 +171,7 @@ def check_baseline(base: dict, where: str) -> None:
             from None
     for ch, name, e, _ in found:
         _check_estimate(e, f"{ch}.{name}", where)
+    _check_settings(base, where)
     if layout == "noisecal.motion/1":
         for ch in _get(base, "measurement.sigma", where):
             entry = base["measurement"]["channels"].get(ch)
@@ -185,6 +186,32 @@ def check_baseline(base: dict, where: str) -> None:
                 for k in ("a", "b"):
                     _check_estimate(law.get(k), f"measurement.channels.{ch}.variance_law.{k}",
                                     where)
+
+
+def _check_settings(base: dict, where: str) -> None:
+    """The settings a re-check re-uses, read and checked for kind and range."""
+    if "settings" in base["provenance"] and not isinstance(base["provenance"]["settings"],
+                                                           dict):
+        raise _damaged(where, "'provenance.settings' is not a mapping")
+    try:
+        st = settings_of(base)
+    except (KeyError, TypeError, ValueError, AttributeError) as exc:
+        raise _damaged(where, f"a setting cannot be read ({exc.__class__.__name__})") \
+            from None
+    ok = {
+        "channels": lambda v: isinstance(v, list) and v and all(isinstance(c, str) for c in v),
+        "dt": lambda v: math.isfinite(v) and v > 0,
+        "reps": lambda v: v > 0, "seed": lambda v: v >= 0,
+        "repair": lambda v: v in (None, "sort", "drop"),
+        "covariate": lambda v: v is None or isinstance(v, str),
+        "gate": lambda v: 0.5 < v < 1,
+        "max_offset": lambda v: math.isfinite(v) and v > 0,
+        "ground": lambda v: v in ("ray", "homography", "dlt"),
+        "poses": lambda v: isinstance(v, bool),
+    }
+    for key, value in st.items():
+        if not ok[key](value):
+            raise _damaged(where, f"the setting {key} = {value!r} is not one a job takes")
 
 
 def load_baseline(path: str, accept_edited: bool = False):
@@ -256,8 +283,9 @@ def estimates_of(sections: dict) -> list:
             law = (m.get("channels", {}).get(ch) or {}).get("variance_law")
             out.append((ch, "sigma", m["sigma"][ch], CONDITIONS if law else {}))
             if law:
-                out.append((ch, "law_a", law["a"], LAW))
-                out.append((ch, "law_b", law["b"], LAW))
+                more = {"more_of": f"drive over the baseline's {law.get('covariate')} range"}
+                out.append((ch, "law_a", law["a"], {**LAW, **more}))
+                out.append((ch, "law_b", law["b"], {**LAW, **more}))
             out.append((ch, "bias", m["bias"][ch], LINEAR))
         out.append(("all", "outlier_fraction", {**m["outlier_fraction"], "unit": "1"}, LINEAR))
         out.append(("all", "time_offset", sections["alignment"]["time_offset"], LINEAR))
@@ -381,7 +409,10 @@ def comparison_rows(base: dict, new: dict, at: list | None = None,
             row["length_ratio"] = length_ratio
         rows.append(row)
     for ch, name, be, ne in _law_points(base, new, at or [], by_law):
-        rows.append(compare.compare_estimates(ch, name, be, ne))
+        row = compare.compare_estimates(ch, name, be, ne)
+        x = name.removeprefix("sigma_at_")
+        row["more_of"] = f"drive near {x} (the covariate's SI unit)"
+        rows.append(row)
     return rows
 
 
@@ -592,11 +623,6 @@ def recheck(baseline: str, recording: str, truth: str | None = None,
         raise InputError(f"--at: only a motion baseline has a variance law; {baseline} is "
                          f"a {job} block")
     lim = read_limits(limits)
-    try:
-        settings_of(base)
-    except (KeyError, TypeError, ValueError, AttributeError) as exc:
-        raise _damaged(baseline, f"a setting cannot be read: {exc.__class__.__name__}") \
-            from None
     new = rerun(job, base, recording, truth, baseline, use_cache, files, poses)
     try:
         rows = comparison_rows(base, new, at, edited=state != "ok")
@@ -652,7 +678,7 @@ def need_text(c, new: dict | None = None) -> str:
         dur = ((new or {}).get("recording") or {}).get("duration_s")
         length = f", ≥ {_duration(dur * c.longer)}" if dur else ""
         return f"record {f} longer{length}"
-    return f"{f} more {c.more_of}"
+    return f"{f} more {c.more_of.split(' (')[0]}"
 
 
 def _duration(s: float) -> str:
@@ -709,6 +735,10 @@ def _sections(job, baseline, recording, base, new, comps, overall, spec, toleran
     return out
 
 
+def _g(x) -> str:
+    return f"{x:.4g}" if isinstance(x, float) else f"{x}"
+
+
 def summary(res: RecheckResult) -> str:
     """Plain-language summary for a technician or a CI log."""
     lines = [f"re-check ({res.job}): {res.verdict.upper()}"
@@ -719,8 +749,8 @@ def summary(res: RecheckResult) -> str:
             what = f"{c.baseline:.4g} → {c.new:.4g} {c.unit}"
         else:
             what = (f"bound {c.baseline_bound:.3g}" if c.baseline is None and c.baseline_bound
-                    else f"{c.baseline}") + " → " + (
-                f"bound {c.new_bound:.3g}" if c.new is None and c.new_bound else f"{c.new}")
+                    else _g(c.baseline)) + " → " + (
+                f"bound {c.new_bound:.3g}" if c.new is None and c.new_bound else _g(c.new))
         extra = (f" ({need_text(c, res.new_sections)} to decide)"
                  if c.longer and c.verdict == "inconclusive" else "")
         p = ("" if c.p_adjusted is None else f", p = {c.p_adjusted:.2g}"

@@ -55,7 +55,7 @@ def test_too_short_exits_three(tmp_path, run_cli):
                    "--quiet")[0] == 0
     short = simulate_rate(np.array([0, 1e-6, 0, 4e-8, 0]), 0.1, 1500, np.random.default_rng(6))
     status, out, _ = run_cli("recheck", base, rate_csv(tmp_path / "short.csv", short, 0.1))
-    assert status == 3 and "INCONCLUSIVE" in out and "× longer" in out and "1× " not in out
+    assert status == 3 and "INCONCLUSIVE" in out and "× longer" in out and " 1× " not in out
 
 
 def test_motion_and_targets_baselines(tmp_path, run_cli):
