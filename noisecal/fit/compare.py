@@ -140,6 +140,17 @@ def compare_estimates(channel: str, name: str, base: dict, new: dict,
            "higher_is_worse": higher_is_worse}
     if bv is not None:
         row["se_base"] = _se_from_ci(base)  # for how much more data a verdict needs
+    if bv is None and bb is not None and nv is not None and not linear:
+        # Bounded before, resolved now: is the new value above the baseline's 95 % upper
+        # bound by more than its own interval allows? One-sided z from the new interval,
+        # in the Holm family like any other test (a bare "above the bound" had no level).
+        lo, hi = new["ci95"]
+        se = (hi - lo) / (2 * 1.959964) if lo is not None and hi is not None else 0.0
+        row["test"] = "new value against the baseline's upper bound (one-sided z)"
+        row["p_value"] = (float(min(1.0, 2 * stats.norm.sf((nv - bb) / se))) if se > 0
+                          else float(nv <= bb))
+        row["against_bound"] = True
+        return row
     if bv is None or nv is None:
         row["test"] = "not resolved in both: bounds compared"
         return row
@@ -283,11 +294,13 @@ def verdicts(rows: list, tolerance: float = DEFAULT_TOLERANCE, limits: dict | No
     out = []
     for r, p_adj in zip(rows, adjusted):
         longer = None
-        if r["p_value"] is None:
-            if r["new"] is not None and r["baseline_bound"] is not None and \
-                    r["new"] > r["baseline_bound"]:
-                verdict = "worse"  # a term the baseline bounded is now resolved above it
-            elif r["baseline"] is not None and r["new"] is None:
+        if r.get("against_bound"):
+            # A term the baseline bounded, now resolved: worse only when significantly
+            # above the bound; otherwise there is still no baseline value to compare with.
+            verdict = ("worse" if p_adj < alpha and r["new"] > r["baseline_bound"]
+                       else "not resolved")
+        elif r["p_value"] is None:
+            if r["baseline"] is not None and r["new"] is None:
                 # Resolved before, only bounded now: the new recording cannot tell; a
                 # recording as long as the baseline's resolved it.
                 verdict = "inconclusive"

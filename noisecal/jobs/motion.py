@@ -206,6 +206,11 @@ def _sections(res: MotionResult, seed: int, max_offset: float, command: str) -> 
             "settings": {"covariate": res.mapping.covariate,
                          "gate": float(res.model.gate_probability),
                          "max_offset_s": float(max_offset), "seed": seed},
+            # The conditions of the run: where a law's coefficients are pinned by data.
+            **({"conditions": {"covariate_range": [
+                num(np.nanmin(res.covariate[m.inliers])),
+                num(np.nanmax(res.covariate[m.inliers]))]}}
+               if res.covariate is not None else {}),
         },
         "alignment": {
             "time_offset": {"value": num(a.offset), "ci95": [num(a.lower), num(a.upper)],

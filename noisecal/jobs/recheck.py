@@ -352,11 +352,45 @@ def _f_dof(base: dict, new: dict, ch: str, name: str, be: dict, ne: dict):
     return None
 
 
+def _covariate_range(block: dict):
+    """(lowest, highest) covariate of a motion run's inliers, or None (not stored)."""
+    span = ((block.get("provenance") or {}).get("conditions") or {}).get("covariate_range")
+    if isinstance(span, list) and len(span) == 2 and all(
+            isinstance(v, (int, float)) and not isinstance(v, bool) for v in span):
+        return float(span[0]), float(span[1])
+    return None
+
+
+def _intercept_pinned(base: dict, ch: str, spans: list) -> bool:
+    """Whether both runs reach covariate values where the law's intercept a is at least
+    the slope's share (|x| ≤ √(a/b), from the baseline's law). Farther out, a is an
+    extrapolation to x = 0 that takes up any variance the law's form leaves out (a
+    small misalignment adds δ²·ẋ²), and it depends on the drive, not only the sensor.
+    Blocks that do not store their covariate range compare it always."""
+    if None in spans:
+        return True
+    law = base["measurement"]["channels"][ch]["variance_law"]
+    a = law["a"].get("value", law["a"].get("upper_bound"))
+    b = law["b"].get("value", law["b"].get("upper_bound"))
+    if not a or not b:
+        return True
+    reach = float(np.sqrt(a / b))
+    return all(min(abs(lo), abs(hi)) <= reach or lo <= 0 <= hi for lo, hi in spans)
+
+
 def _law_points(base: dict, new: dict, at: list, by_law: set) -> list:
-    """(channel, name, baseline σ(x), new σ(x)) at each stated covariate value."""
+    """(channel, name, baseline σ(x), new σ(x)) at each stated covariate value, and at
+    the middle (geometric, for a positive range) of the covariate range both runs
+    covered, where both laws rest on data."""
     out = []
-    if base["layout"] != "noisecal.motion/1" or not at:
+    if base["layout"] != "noisecal.motion/1":
         return out
+    spans = [_covariate_range(x) for x in (base, new)]
+    at = list(at)
+    if None not in spans:
+        lo, hi = max(spans[0][0], spans[1][0]), min(spans[0][1], spans[1][1])
+        if lo < hi:
+            at.append(float(f"{np.sqrt(lo * hi) if lo > 0 else (lo + hi) / 2:.3g}"))
     for ch, entry in base["measurement"]["channels"].items():
         law = entry.get("variance_law") if ch in by_law else None
         nlaw = (new["measurement"]["channels"].get(ch) or {}).get("variance_law")
@@ -364,7 +398,7 @@ def _law_points(base: dict, new: dict, at: list, by_law: set) -> list:
             continue
         unit = str(law.get("b", {}).get("unit", "")).rsplit("/", 1)[-1]
         unit = unit.replace("(", "").replace(")^2", "")
-        for x in at:
+        for x in dict.fromkeys(at):
             out.append((ch, f"sigma_at_{x:g}",
                         compare.law_sigma(law["a"], law["b"], x, unit),
                         compare.law_sigma(nlaw["a"], nlaw["b"], x, unit)))
@@ -395,11 +429,14 @@ def comparison_rows(base: dict, new: dict, at: list | None = None,
     # pooled σ (F-test, tighter) is the sensor's.
     by_law = {ch for ch, name, e, _ in estimates_of(base) + estimates_of(new)
               if name == "law_b" and "value" in e}
+    spans = [_covariate_range(x) for x in (base, new)]
     rows = []
     for ch, name, be, how in estimates_of(base):
         ne = found.get((ch, name))
         if ne is None or (how.get("conditions") and ch in by_law) or (
                 how.get("law") and ch not in by_law):
+            continue
+        if name == "law_a" and not _intercept_pinned(base, ch, spans):
             continue
         f_dof = None if edited else _f_dof(base, new, ch, name, be, ne)
         row = compare.compare_estimates(ch, name, be, ne, f_dof,
