@@ -118,21 +118,6 @@ def _parser() -> argparse.ArgumentParser:
     r.add_argument("--accept-edited", action="store_true",
                    help="accept a baseline whose checksum fails (an intended hand edit); "
                    "recorded in the output, stated values compared")
-    r.add_argument("--verdict-on", metavar="WHAT", default="all",
-                   help="what the verdict and exit status rest on: all (default), decidable "
-                   "(what this recording can decide; the rest is listed with the data it "
-                   "needs) or channel.parameter names, comma-separated")
-    r.add_argument("--at", metavar="X[,X...]", help="also compare a variance law's sigma at "
-                   "these covariate values (SI), e.g. --at 10,30 for ranges in m")
-    for key, what in (("map", "measurement map"), ("config", "odometry config"),
-                      ("camera", "camera file"), ("survey", "survey")):
-        r.add_argument(f"--{key}", help=f"the baseline's {what}, where it is not found as "
-                       "stored (relative to the baseline's folder)")
-    r.add_argument("--poses", help="the new session's platform poses (a baseline from a "
-                   "moving camera)")
-    r.add_argument("--accept-edited", action="store_true",
-                   help="accept a baseline whose checksum fails (an intended hand edit); "
-                   "recorded in the output, stated values compared")
     r.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     r.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
     _history_options(r)
