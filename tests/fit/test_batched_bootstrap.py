@@ -108,7 +108,9 @@ def white_walk_intervals(sims, curve_avar, nu, taus):
     return [pivot_interval(c[i], boot[:, i]) for i in range(2)]
 
 
-def test_intervals_over_seeds_match_the_reference():
+@pytest.mark.parametrize("seeds", [pytest.param(4, id="4-seeds"),
+                                   pytest.param(24, id="24-seeds", marks=pytest.mark.slow)])
+def test_intervals_over_seeds_match_the_reference(seeds):
     """The white-noise and random-walk intervals made from each replicate set agree over
     seeds: mean log width within four standard errors of the seed-to-seed spread."""
     model, n, _ = MODELS["white_walk_long"]
@@ -117,7 +119,7 @@ def test_intervals_over_seeds_match_the_reference():
     avar = expected_of(model)(taus)
     nu = np.maximum(n / m * 0.7, 2.0)
     widths = {"fast": [], "ref": []}
-    for seed in range(8):
+    for seed in range(seeds):
         fast, ref = pair("white_walk_long", 200, seed=100 + seed)
         for key, sims in (("fast", fast), ("ref", ref)):
             ci = white_walk_intervals(sims, avar, nu, taus)
