@@ -2,9 +2,11 @@
 
 Scenario (invented): the "Marten-3" orchard rover's inertial unit, a
 fictional six-axis MEMS IMU called NC-40, bolted to the isolated bench of the
-rover team's workshop and logged at rest for 6 h at 20 Hz. The log has a 3 s
-dropout (a logger stall) and 50 µs timestamp jitter. Values are stored at the
-unit's output resolution (0.0005 deg/s, 1e-5 g).
+rover team's workshop and logged at rest for 6 h at 20 Hz. Like every MEMS
+unit it low-passes its output before the 20 Hz sampling: a 2nd-order
+Butterworth at 5 Hz (DC gain 1), which pulls the shortest taus below N/√τ.
+The log has a 3 s dropout (a logger stall) and 50 µs timestamp jitter. Values
+are stored at the unit's output resolution (0.0005 deg/s, 1e-5 g).
 
 True noise terms (SI; the data are simulated from exactly these):
 
@@ -18,6 +20,7 @@ accel_x/y  5.0e-4 m/s²/√Hz      1.961e-4 m/s²        9.2e-6 m/s²·√Hz    
 accel_z    as accel_x           as accel_x           as accel_x            2.0e-7 m/s³
 =========  ===================  ===================  ====================  =============
 
+N is the low-frequency level (what a filter stepping well above 0.1 s sees).
 Quantization at the output resolution adds under 0.1 % to N² and is left
 out of the table. Run: ``python tools/make_demo_recordings.py``.
 """
@@ -47,6 +50,15 @@ OFFSET_G = {"accel_x": 0.0041, "accel_y": -0.0027, "accel_z": 1.0012}
 GYRO_LSB_DEG_S = 0.0005
 ACCEL_LSB_G = 1e-5
 DROPOUT_AT_S, DROPOUT_S = 8280.0, 3.0
+LOW_PASS_HZ = 5.0
+
+
+def low_pass(y: np.ndarray, period: float) -> np.ndarray:
+    """The unit's output filter: 2nd-order Butterworth, DC gain 1, started at rest."""
+    from scipy import signal
+
+    sos = signal.butter(2, LOW_PASS_HZ, fs=1.0 / period, output="sos")
+    return signal.sosfilt(sos, y, zi=signal.sosfilt_zi(sos) * y[0])[0]
 
 
 def make_static(path: Path) -> None:
@@ -58,11 +70,11 @@ def make_static(path: Path) -> None:
     t_ns += 1_780_000_000 * 10 ** 9  # an epoch start in 2026
     columns = {"time [ns]": t_ns}
     for name, offset in OFFSET_DEG_S.items():
-        rate = simulate_rate(GYRO, period, n, rng) / DEG + offset
+        rate = low_pass(simulate_rate(GYRO, period, n, rng), period) / DEG + offset
         columns[f"{name} [deg/s]"] = np.round(rate / GYRO_LSB_DEG_S) * GYRO_LSB_DEG_S
     for name, offset in OFFSET_G.items():
         model = ACCEL_Z if name == "accel_z" else ACCEL
-        acc = simulate_rate(model, period, n, rng) / G + offset
+        acc = low_pass(simulate_rate(model, period, n, rng), period) / G + offset
         columns[f"{name} [g]"] = np.round(acc / ACCEL_LSB_G) * ACCEL_LSB_G
     keep = np.ones(n, dtype=bool)
     start = int(DROPOUT_AT_S * RATE_HZ)
