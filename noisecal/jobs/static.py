@@ -30,6 +30,7 @@ from ..fit.simulate import TERM_NAMES
 from ..ingest import read_recording
 from ..types import AllanCurve, ChannelModel, FilterBlock, Recording
 from ..units import customary
+from .parallel import SharedBar, map_ordered
 from .progress import StageBars, progress_bar
 from .result import JobResult, Parameter
 
@@ -197,8 +198,11 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
             raise AnalysisError(f"{rec.source.path}, column {name!r}: the channel is "
                                 "constant; leave it out with --channels")
     with progress_bar(total=2 * reps * len(names), desc="bootstrap", quiet=quiet) as bar:
-        per = {name: ChannelResult(*_channel(rec, name, reps, seed + i, bar))
-               for i, name in enumerate(names)}
+        # Channels on threads: their heavy steps run in kernels that release the GIL.
+        shared = SharedBar(bar)
+        outs = map_ordered(lambda item: _channel(rec, item[1], reps, seed + item[0], shared),
+                           list(enumerate(names)))
+        per = {name: ChannelResult(*out) for name, out in zip(names, outs)}
     models = [c.model for c in per.values()]
     block = filter_block(models, step)
     sections = _sections(rec, models, [c.psd for c in per.values()], block, seed, reps,

@@ -244,3 +244,4 @@ def test_no_type_is_borrowed_across_taus():
     fresh = allan_curve(y, 0.1, "1", "ohdev", "octave")
     np.testing.assert_array_equal(got.identified, fresh.identified)
     np.testing.assert_array_equal(got.alpha, fresh.alpha)
+
