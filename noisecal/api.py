@@ -262,7 +262,9 @@ def targets(detections, *, survey, camera, poses=None, ground: str = "ray",
 
 
 def recheck(baseline, recording, *, truth=None, limits: str | None = None,
-            tolerance: float = 1.25, alpha: float = 0.01, command: str = ""):
+            tolerance: float = 1.25, alpha: float = 0.01, files: dict | None = None,
+            poses=None, accept_edited: bool = False, verdict_on: str | None = None,
+            at: list | None = None, command: str = ""):
     """Re-run a baseline's job on a new recording and compare every parameter.
 
     Parameters
@@ -279,6 +281,18 @@ def recheck(baseline, recording, *, truth=None, limits: str | None = None,
         Ratio (in σ) a parameter must be able to reveal to be called consistent.
     alpha : float
         Family-wise false-alarm rate (Holm).
+    files : dict, optional
+        Side files in place of the baseline's: ``map``, ``config``, ``camera``,
+        ``survey`` (by default they are found relative to the baseline's folder).
+    poses : str, optional
+        The new session's platform poses (a moving-camera baseline).
+    accept_edited : bool
+        Accept a baseline whose checksum fails (a hand edit); recorded in the result.
+    verdict_on : str, optional
+        ``"all"`` (default), ``"decidable"`` (what this recording can decide), or
+        ``"channel.name,..."``.
+    at : list of float, optional
+        Covariate values (SI) at which a variance law's σ is compared.
     command : str
 
     Returns
@@ -294,7 +308,16 @@ def recheck(baseline, recording, *, truth=None, limits: str | None = None,
     if isinstance(alpha, bool) or not isinstance(alpha, numbers.Real) or not 0 < alpha < 0.5:
         raise ParameterError("alpha", alpha, "give a false-alarm rate between 0 and 0.5, "
                              "e.g. 0.01")
+    if files is not None and not (hasattr(files, "items") and all(
+            isinstance(v, (str, Path)) for v in files.values())):
+        raise ParameterError("files", files, "give a mapping such as {'map': 'drive_map.yaml'}")
+    if at is not None and not all(isinstance(v, numbers.Real) for v in at):
+        raise ParameterError("at", at, "give a list of covariate values in SI")
     return run(_path("baseline", baseline), _path("recording", recording),
                None if truth is None else _path("truth", truth),
                None if limits is None else _path("limits", limits), float(tolerance),
-               command=command, alpha=float(alpha))
+               command=command, alpha=float(alpha),
+               files={k: str(v) for k, v in (files or {}).items()},
+               poses=None if poses is None else _path("poses", poses),
+               accept_edited=bool(accept_edited), verdict_on=verdict_on,
+               at=None if at is None else [float(v) for v in at])

@@ -79,8 +79,8 @@ class MotionResult(JobResult):
     def _summary(self) -> str:
         return summary(self)
 
-    def _render(self) -> str:
-        return render(self.sections)
+    def _render(self, out=None) -> str:
+        return render(self.sections, out)
 
 
 def _check_truth_gaps(series, times, path):
@@ -313,10 +313,11 @@ def run_motion(sensor_path: str, truth_path: str, out: str, map_path: str | None
                else same_names(sensor.channels, truth.channels, covariate))
     res = analyse(sensor, truth, mapping, gate_probability, max_offset, seed, command)
     motion_figure(res, plot_path)
-    write_text(out_path, render(res.sections))
+    write_text(out_path, res._render(out_path))
     return res
 
 
-def render(sections: dict) -> str:
-    """The YAML text of the motion block."""
-    return yaml_block.render(sections, f"noisecal motion against truth ({LAYOUT})", _COMMENTS)
+def render(sections: dict, out=None) -> str:
+    """The YAML text of the motion block (side files relative to ``out``'s folder)."""
+    return yaml_block.render(sections, f"noisecal motion against truth ({LAYOUT})", _COMMENTS,
+                             out=out)

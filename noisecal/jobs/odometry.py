@@ -73,9 +73,9 @@ class OdometryResult(JobResult):
     def _summary(self) -> str:
         return summary(self)
 
-    def _render(self) -> str:
+    def _render(self, out=None) -> str:
         return yaml_block.render(self.sections, f"noisecal odometry against truth ({LAYOUT})",
-                                 _COMMENTS)
+                                 _COMMENTS, out=out)
 
 
 def _channel(rec, name, unit, where):
@@ -317,6 +317,5 @@ def run_odometry(odometry_path: str, truth_path: str, config_path: str, out: str
         bars.close()
     res = analyse(odo, truth, cfg, max_offset, command)
     odometry_figure(res, plot_path)
-    write_text(out_path, yaml_block.render(res.sections, f"noisecal odometry against truth "
-                                           f"({LAYOUT})", _COMMENTS))
+    write_text(out_path, res._render(out_path))
     return res

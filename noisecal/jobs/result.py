@@ -58,7 +58,8 @@ class JobResult:
     """Methods every job result shares (mixed into each frozen result class).
 
     A subclass provides ``sections`` (the YAML content), ``parameters()``,
-    ``_summary()`` and ``_render()`` (the YAML text).
+    ``_summary()`` and ``_render(out)`` (the YAML text; side-file paths
+    relative to ``out``'s folder).
     """
 
     def parameters(self) -> list[Parameter]:  # pragma: no cover - every job overrides it
@@ -88,7 +89,7 @@ class JobResult:
             raise InputError(f"{path}: is a folder; give a file name for the YAML block")
         if path.exists() and not overwrite:
             raise ParameterError("path", str(path), "exists; pass overwrite=True to replace it")
-        write_text(path, self._render())
+        write_text(path, self._render(path))
         return path
 
     def estimate(self, channel: str, name: str) -> Estimate:

@@ -126,8 +126,8 @@ class StaticResult(JobResult):
     def _summary(self) -> str:
         return summary(self)
 
-    def _render(self) -> str:
-        return yaml_block.render(self.sections)
+    def _render(self, out=None) -> str:
+        return yaml_block.render(self.sections, out=out)
 
     def _at_level(self, channel: str, name: str, level: float):
         """A resolved term's interval from the same bootstrap at another level."""
@@ -427,5 +427,5 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
                     command=command)
     allan_figure(result.models, result.dense, result.hadamard, plot_path,
                  f"{Path(path).name} — overlapping Allan deviation, 95 % intervals, fitted terms")
-    write_text(out_path, yaml_block.render(result.sections))
+    write_text(out_path, result._render(out_path))
     return result

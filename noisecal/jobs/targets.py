@@ -66,9 +66,9 @@ class TargetsResult(JobResult):
     def _summary(self) -> str:
         return summary(self)
 
-    def _render(self) -> str:
+    def _render(self, out=None) -> str:
         return yaml_block.render(self.sections, f"noisecal camera against surveyed targets "
-                                 f"({LAYOUT})", _COMMENTS)
+                                 f"({LAYOUT})", _COMMENTS, out=out)
 
 
 def estimate_ground_homography(camera: Camera, survey: Survey, det: Detections) -> np.ndarray:
@@ -304,6 +304,5 @@ def run_targets(detections_path: str, survey_path: str, camera_path: str, out: s
         camera = posed_camera(camera, read_recording(poses_path), det)
     res = analyse(camera, survey, det, ground, gate_probability, seed, command)
     camera_figure(res, plot_path)
-    write_text(out_path, yaml_block.render(res.sections, f"noisecal camera against surveyed "
-                                           f"targets ({LAYOUT})", _COMMENTS))
+    write_text(out_path, res._render(out_path))
     return res

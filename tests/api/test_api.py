@@ -142,3 +142,27 @@ def test_written_block_reads_back_to_the_parameters(gyro, tmp_path):
         back = yaml_block.estimate_from(doc["channels"][p.channel][p.name])
         assert back == p.estimate, p
         assert not math.isnan(back.upper)
+
+
+def test_recheck_from_python_and_side_files_relative(tmp_path):
+    """A Python re-check of a static block against the same recording: consistent, exit
+    0; the block written by write() carries a checksum the re-check verifies, and a
+    block moved with its recording to another folder still re-checks."""
+    import shutil
+
+    y = simulate_rate(np.array([0, 1e-8, 0, 0, 0]), 0.01, 2 ** 14, np.random.default_rng(9))
+    csv = tmp_path / "a" / "g.csv"
+    csv.parent.mkdir()
+    with open(csv, "w") as fh:
+        fh.write("time [s],gyro_x [rad/s]\n")
+        np.savetxt(fh, np.column_stack([np.arange(y.size) * 0.01, y]), delimiter=",")
+    res = noisecal.static(noisecal.read(csv, cache=False), reps=40, seed=3)
+    block = res.write(tmp_path / "a" / "base.yaml")
+    check = noisecal.recheck(block, csv, verdict_on="decidable")
+    assert check.verdict == "consistent" and check.exit_status == 0
+    moved = tmp_path / "elsewhere"
+    shutil.copytree(tmp_path / "a", moved)
+    again = noisecal.recheck(moved / "base.yaml", moved / "g.csv", verdict_on="decidable")
+    assert again.verdict == "consistent"
+    with pytest.raises(ValueError, match="tolerance=1.0"):
+        noisecal.recheck(block, csv, tolerance=1.0)
