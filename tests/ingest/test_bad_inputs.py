@@ -128,7 +128,7 @@ def test_existing_output_needs_overwrite(run_cli, tmp_path):
 
 @pytest.mark.parametrize("args, expect", [
     (("--channels", "gyro_q"), "gyro_q not in"),
-    (("--dt", "-1"), "positive time step"),
+    (("--dt", "-1"), "--dt -1.0: give a positive number of seconds"),
     (("--reps", "5"), "at least 20"),
 ])
 def test_bad_options(run_cli, tmp_path, args, expect):
