@@ -28,6 +28,7 @@ read it as a printer's 1/96 inch).
 
 from __future__ import annotations
 
+import hashlib
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -35,7 +36,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..units import split_header, to_si
-from .yaml_file import read_yaml
+from .yaml_file import TABLE_CAP, read_side_file, read_yaml
 
 PIXEL_UNITS = ("px", "pixel", "pixels")
 
@@ -140,18 +141,36 @@ def check_homography(H: np.ndarray, where: str) -> None:
                          "surveyed floor points, no three on one line")
 
 
+def _data_lines(text: str) -> list:
+    """1-based line numbers of the lines pandas reads (header first): not blank, not
+    a ``#`` comment line; a quoted field spanning lines is not followed."""
+    return [i + 1 for i, line in enumerate(text.splitlines())
+            if line.split("#", 1)[0].strip()]
+
+
+def _line(frame, row: int) -> int:
+    """The file's line number of data row ``row`` (0-based) of a side table."""
+    lines = frame.attrs.get("lines", [])
+    return lines[row + 1] if row + 1 < len(lines) else row + 2
+
+
 def _read_table(path: Path, what: str):
+    import io
+
     import pandas as pd
 
-    if not path.exists():
-        raise InputError(f"{path}: no such {what} file; check the path")
+    data = read_side_file(path, f"{what} file", TABLE_CAP)
     try:
-        frame = pd.read_csv(path, comment="#", dtype=str, skipinitialspace=True)
-    except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError):
+        text = data.decode("utf-8")
+        frame = pd.read_csv(io.StringIO(text), comment="#", dtype=str, skipinitialspace=True)
+    except (pd.errors.ParserError, UnicodeDecodeError, pd.errors.EmptyDataError, ValueError):
         raise InputError(f"{path}: cannot read the {what} as CSV; check the delimiter "
-                         "(commas) and the header") from None
+                         "(commas), the header and that it is UTF-8 text") from None
     if frame.shape[0] == 0:
         raise InputError(f"{path}: the {what} has a header but no rows")
+    # Line numbers in messages count the comment and blank lines pandas skipped.
+    frame.attrs["lines"] = _data_lines(text)
+    frame.attrs["sha256"] = hashlib.sha256(data).hexdigest()
     return frame
 
 
@@ -179,7 +198,7 @@ def _numeric(frame, col, path, name):
     values = pd.to_numeric(frame[col], errors="coerce").to_numpy(dtype=float)
     bad = np.flatnonzero(~np.isfinite(values))
     if bad.size:
-        raise InputError(f"{path}, line {bad[0] + 2}, column {name!r}: "
+        raise InputError(f"{path}, line {_line(frame, int(bad[0]))}, column {name!r}: "
                          f"{frame[col].iloc[bad[0]]!r} is not a finite number")
     return values
 
@@ -193,6 +212,11 @@ def _in_si(frame, found, name, path, expect):
                              "write [px]")
         return values
     si, si_unit = to_si(values, unit, f"{path}, column {name!r}")
+    bad = np.flatnonzero(~np.isfinite(si))
+    if bad.size:
+        raise InputError(f"{path}, line {_line(frame, int(bad[0]))}, column {name!r}: "
+                         f"{values[bad[0]]:.6g} [{unit}] overflows in SI; check the value "
+                         "and the unit")
     if si_unit != expect:
         raise InputError(f"{path}, column {name!r}: unit [{unit}] is not a "
                          f"{'length' if expect == 'm' else expect}; use e.g. [{expect}]")
@@ -266,8 +290,6 @@ class Detections:
 
 def read_detections(path: str | Path, survey: Survey, camera: Camera) -> Detections:
     """Read and check detections against the survey and the image size."""
-    import hashlib
-
     path = Path(path)
     frame = _read_table(path, "detections")
     found = _columns(frame, path, ("time", "id", "u", "v"), ("score",))
@@ -276,19 +298,20 @@ def read_detections(path: str | Path, survey: Survey, camera: Camera) -> Detecti
     known = set(survey.ids)
     for row, name in enumerate(ids):
         if name not in known:
-            raise InputError(f"{path}, line {row + 2}: target id {name!r} is not in the survey "
+            raise InputError(f"{path}, line {_line(frame, row)}: target id {name!r} is not in "
+                             f"the survey "
                              f"{survey.source}; add it there or remove the detection")
     u = _in_si(frame, found, "u", path, "px")
     v = _in_si(frame, found, "v", path, "px")
     outside = np.flatnonzero((u < 0) | (v < 0) | (u > camera.width) | (v > camera.height))
     if outside.size:
         r = outside[0]
-        raise InputError(f"{path}, line {r + 2}: detection ({u[r]:.6g}, {v[r]:.6g}) px is "
+        raise InputError(f"{path}, line {_line(frame, int(r))}: detection ({u[r]:.6g}, {v[r]:.6g}) px is "
                          f"outside the {camera.width}×{camera.height} image; check the "
                          "camera file's size or the detector's pixel convention")
     score = None
     if "score" in found:
         col, unit = found["score"]
         score = _numeric(frame, col, path, "score")
-    digest = hashlib.sha256(path.read_bytes()).hexdigest()
-    return Detections(time, ids, np.column_stack([u, v]), score, str(path), digest)
+    return Detections(time, ids, np.column_stack([u, v]), score, str(path),
+                      frame.attrs["sha256"])

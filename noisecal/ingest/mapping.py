@@ -93,7 +93,8 @@ def read_map(path: str | Path, covariate: str | None = None) -> MeasurementMap:
                          "truth quantity, e.g. 'measures: {offset: path.offset}'")
     unknown = set(data) - KEYS
     if unknown:
-        raise InputError(f"{path}: unknown key(s) {', '.join(sorted(unknown))}; the keys are "
+        raise InputError(f"{path}: unknown key(s) {', '.join(sorted(map(repr, unknown)))}; "
+                         f"the keys are "
                          f"{', '.join(sorted(KEYS))}")
     measures = data["measures"]
     if not isinstance(measures, dict) or not measures or \
@@ -113,6 +114,9 @@ def read_map(path: str | Path, covariate: str | None = None) -> MeasurementMap:
         if np.any(np.hypot(*np.diff(poly, axis=0).T) == 0):
             raise InputError(f"{path}: 'path' repeats a point; remove the zero-length segment")
     beacons = {}
+    if not isinstance(data.get("beacons") or {}, dict):
+        raise InputError(f"{path}: 'beacons' maps beacon ids to [x, y] positions, m, e.g. "
+                         "'beacons: {B1: [12.5, 3.0]}'")
     for name, xy in (data.get("beacons") or {}).items():
         arr = _points(xy, f"{path}: beacon {name!r}", "[x, y] in m")
         if arr.shape != (2,):
@@ -198,7 +202,8 @@ def read_odometry_config(path: str | Path) -> OdometryConfig:
                          "'increments:' (dx, dy, dyaw)")
     unknown = set(data) - {"encoders", "increments", "window_s", "pose"}
     if unknown:
-        raise InputError(f"{path}: unknown key(s) {', '.join(sorted(unknown))}")
+        raise InputError(f"{path}: unknown key(s) {', '.join(sorted(map(repr, unknown)))}; "
+                         "the keys are encoders or increments, window_s and pose")
     pose = {"x": "x", "y": "y", "yaw": "yaw"}
     if "pose" in data:
         if not isinstance(data["pose"], dict) or set(data["pose"]) - set(pose):
