@@ -9,14 +9,12 @@ the cache.
 
 from __future__ import annotations
 
-import shutil
-import tempfile
 import threading
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
-from ..errors import InputError
-from ..paths import cache_root
+from ..errors import InputError, OutputError
+from ..paths import LockedFolder, clean_stale, scratch_parent, usable_cache_root
 from ..types import Gap, Recording, SaturatedRun, Source
 from . import cache
 from .columnar import NpzSource, ParquetSource
@@ -82,6 +80,7 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
         Repair for timestamps that are not strictly increasing.
     use_cache : bool
         Use the binary cache (CSV and Parquet); see :mod:`noisecal.ingest.cache`.
+        A cache folder that cannot be used means no cache, with one note on stderr.
     progress : callable, optional
         ``progress(stage, done, total)`` with stage ``"hash"`` or ``"read"``.
 
@@ -93,42 +92,85 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
     Raises
     ------
     InputError
-        One line naming what is wrong, where, and what to do.
+        One line naming what is wrong, where, and what to do; also when the
+        file changed while it was being read (nothing is cached then).
     """
     path = Path(path)
     if repair is not None and repair not in REPAIRS:
         raise InputError(f"--repair {repair!r} is not known; use one of {', '.join(REPAIRS)}")
     source = _open(path)
-    size = path.stat().st_size
+    state = _state(path)
+    size = state[1]
     tick = (lambda stage: (lambda done: progress(stage, done, size))) if progress else (lambda s: None)
     cached = use_cache and repair is None and source.format in CACHED
-    root = cache_root() if cached else None
-    known = cache.known_hash(path, root)
+    root = usable_cache_root() if cached else None
+    if root is not None:
+        _clean_once(root)
+    cached = root is not None
+    known = cache.known_hash(root, state)
     if known is not None:
-        hit = cache.load(root, known)
-        if hit is not None:
+        hit = cache.load(root, known, expect_probe=cache.probe(path))
+        if hit is not None and _state(path) == state:
             return _recording(path, *hit)  # the header was checked when the entry was made
+        cache.forget(root, state)
+        known = None  # the index was wrong or the entry damaged: hash the file again
     header = parse_header(source.headers, str(path))
     with _Hasher(path, known, tick("hash")) as hasher:
         if cached:
-            return _read_cached(path, source, header, size, root, hasher, tick("read"))
+            return _read_cached(path, source, header, state, root, hasher, tick("read"))
         if repair is not None:
             start, time, cols, note = read_into_memory(source, header, repair, tick("read"))
         else:
-            # Stream through temporary files so memory holds one copy, not blocks + copy.
-            with tempfile.TemporaryDirectory(prefix="noisecal-") as tmp:
-                sink = NpySink(Path(tmp), len(header.names))
-                try:
-                    start = stream(source, header, sink, None, tick("read"))
-                    release_free_memory()
-                    time, cols = sink.finish(in_memory=True)
-                finally:
-                    sink.close()
+            # Stream through scratch files so memory holds one copy, not blocks + copy;
+            # the folder is locked, so a run killed outright leaves it for the next to clean.
+            parent = scratch_parent()
+            _clean_once(parent, SCRATCH)
+            work = LockedFolder(parent, SCRATCH)
+            sink = NpySink(work.path, len(header.names))
+            try:
+                start = stream(source, header, sink, None, tick("read"))
+                release_free_memory()
+                time, cols = sink.finish(in_memory=True)
+            finally:
+                sink.close()
+                work.release()
             note = None
         digest = hasher.result()
+    _unchanged(path, state)
     repairs = (f"--repair {repair}: {note}",) if note else ()
     meta = _meta(source, header, digest, size, start, time, cols, repairs)
     return _recording(path, meta, time, cols)
+
+
+SCRATCH = "noisecal-scratch-"
+_cleaned: set = set()
+
+
+def _clean_once(folder: Path, prefix: str | None = None) -> None:
+    """Remove leftovers of interrupted runs, once per process and folder."""
+    if (folder, prefix) in _cleaned:
+        return
+    _cleaned.add((folder, prefix))
+    if prefix is None:
+        cache.clean(folder)
+    else:
+        clean_stale(folder, prefix)
+
+
+def _state(path: Path) -> tuple:
+    try:
+        return cache.file_state(path)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot be read ({exc.strerror}); check the path "
+                         "and permissions") from None
+
+
+def _unchanged(path: Path, state: tuple) -> None:
+    """Refuse a file whose size, times or inode changed while it was read."""
+    if _state(path) != state:
+        raise InputError(f"{path}: the file changed while it was being read (a logger "
+                         "still writing, or a copy under way); wait until it is complete, "
+                         "or analyse a copy, and run again")
 
 
 class _Hasher:
@@ -159,30 +201,53 @@ class _Hasher:
         return False
 
 
-def _read_cached(path, source, header, size, root, hasher, tick) -> Recording:
-    """Stream into a new cache entry, then serve the recording from it."""
-    tmp = cache.new_entry(root)
-    sink = NpySink(tmp, len(header.names))
+def _read_cached(path, source, header, state, root, hasher, tick) -> Recording:
+    """Stream into a new cache entry, then serve the recording from it.
+
+    The entry is committed only if the file's state after the read and the
+    hash is the one taken before it, so its name (the hash) and its data come
+    from the same bytes.
+    """
     try:
+        work = cache.new_entry(root)
+    except OSError as exc:
+        raise OutputError(f"{root}: cannot write to the cache folder ({exc.strerror}); "
+                          "free some space or pass --no-cache") from None
+    sink = None
+    try:
+        sink = NpySink(work.path, len(header.names), checksum=True)
         start = stream(source, header, sink, None, tick)
         time, cols = sink.finish()
         digest = hasher.result()
+        fingerprint = cache.probe(path)
+        _unchanged(path, state)
         release_free_memory()
-        cache.remember(path, root, digest)
+        ours = False
         if cache.load(root, digest) is not None:
             # Same bytes under another name or a new mtime: keep the entry there is.
             sink.close()
-            shutil.rmtree(tmp, ignore_errors=True)
+            work.release()
         else:
-            meta = _meta(source, header, digest, size, start, time, cols, ())
+            meta = _meta(source, header, digest, state[1], start, time, cols, ())
+            meta["probe"] = fingerprint
             del time, cols
-            cache.commit(tmp, root, digest, meta)
+            ours = cache.commit(work, root, digest, meta, sink.checksums)
+        cache.remember(root, state, digest)
+    except OSError as exc:
+        if sink is not None:
+            sink.close()
+        work.release()
+        if exc.filename and Path(exc.filename) == path:
+            raise InputError(f"{path}: cannot be read ({exc.strerror}); check the file") from None
+        raise OutputError(f"{root}: cannot write to the cache folder ({exc.strerror}); "
+                          "free some space or pass --no-cache") from None
     except BaseException:
-        sink.close()
-        shutil.rmtree(tmp, ignore_errors=True)
+        if sink is not None:
+            sink.close()
+        work.release()
         raise
-    hit = cache.load(root, digest)
+    hit = cache.load(root, digest, verify=not ours)
     if hit is None:
-        raise InputError(f"{cache.entry_dir(root, digest)}: the cache entry just "
-                         "written cannot be read; check the disk or pass --no-cache")
+        raise OutputError(f"{cache.entry_dir(root, digest)}: the cache entry just "
+                          "written cannot be read; check the disk or pass --no-cache")
     return _recording(path, *hit)

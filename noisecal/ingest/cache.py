@@ -3,14 +3,34 @@
 An entry is a folder named by the input's SHA-256 (and the cache layout
 version) holding ``time.npy``, ``c<i>.npy`` and ``meta.json`` (header,
 units, period, gaps, … — everything validation found). It is written in a
-temporary folder beside it and renamed into place, so an interrupted write
-leaves no entry; a folder without a readable ``meta.json`` is treated as
-absent and rebuilt. To avoid hashing a multi-GB file on every run, an index
-maps (real path, size, mtime, ctime, inode) to the content hash; any change
-to the file changes its ctime and forces a new hash.
+locked temporary folder beside it and renamed into place, so an interrupted
+write leaves no entry; leftovers of a run killed outright are removed by the
+next run (:func:`clean`).
+
+What is checked, and when:
+
+* ``meta.json`` holds the SHA-256 of each column file's data bytes and a
+  SHA-256 of its own content; on every load both are checked, the entry's
+  recorded input hash must equal the one asked for, and the shapes and
+  dtypes must be those recorded. An entry that fails any check is removed,
+  rebuilt from the input, and the run says so in one note on stderr.
+* To avoid hashing a multi-GB file on every run, an index maps (real path,
+  size, mtime, ctime, inode, device) to the content hash; any change to the
+  file changes its ctime and forces a new hash. Each index record carries a
+  checksum of itself, and an entry reached through the index must also match
+  the file's size and a hash of its first and last 64 KiB (the *probe*), so
+  a damaged or edited index cannot serve another file's data.
+* The file's state is taken before the read and again after it; a file that
+  changed in between is refused (one line) and nothing is cached, so an
+  entry always holds the data of the bytes its name says.
+
+These checks find damage (a flipped byte, a truncated file, an edited
+number); they are not a defence against someone who can write the cache
+folder and recompute the checksums.
 
 Location: ``$NOISECAL_CACHE`` if set, else ``$XDG_CACHE_HOME/noisecal``, else
-``~/.cache/noisecal``.
+``~/.cache/noisecal``; a location that cannot be used (a file, read-only)
+means no cache for the run, with one note.
 """
 
 from __future__ import annotations
@@ -20,11 +40,21 @@ import json
 import os
 import shutil
 import tempfile
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
 
-LAYOUT = 1
+from ..paths import LockedFolder, clean_stale, note
+from .sink import NPY_HEADER
+
+LAYOUT = 2
+BUILDING = ".building-"
+PROBE_BYTES = 1 << 16
+MAP_LIMIT = 256
+"""Columns up to which an entry is memory-mapped; a wider entry is read into memory,
+since each memory map holds a file descriptor (the usual limit is 1024)."""
+INDEX_SIZE = 1000
 
 
 def file_digest(path: Path, progress=None, stop=None) -> str | None:
@@ -48,73 +78,217 @@ def file_digest(path: Path, progress=None, stop=None) -> str | None:
     return digest.hexdigest()
 
 
-def _stat_key(path: Path) -> str:
-    st = path.stat()
-    return f"{path.resolve()}|{st.st_size}|{st.st_mtime_ns}|{st.st_ctime_ns}|{st.st_ino}"
+def file_state(path: Path) -> tuple:
+    """What identifies a file's bytes without reading them: (real path, size,
+    mtime, ctime, inode, device), times in ns."""
+    st = os.stat(path)
+    return (str(Path(path).resolve()), st.st_size, st.st_mtime_ns, st.st_ctime_ns,
+            st.st_ino, st.st_dev)
+
+
+def probe(path: Path) -> str:
+    """SHA-256 of the size and the first and last ``PROBE_BYTES`` of a file."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        size = os.fstat(fh.fileno()).st_size
+        digest.update(str(size).encode())
+        digest.update(fh.read(PROBE_BYTES))
+        fh.seek(max(0, size - PROBE_BYTES))
+        digest.update(fh.read(PROBE_BYTES))
+    return digest.hexdigest()
+
+
+def _key(state: tuple) -> str:
+    return "|".join(map(str, state))
+
+
+def _record_check(key: str, digest: str) -> str:
+    return hashlib.sha256(f"{key}\n{digest}".encode()).hexdigest()[:32]
 
 
 def _index(root: Path) -> dict:
     try:
-        return json.loads((root / "index.json").read_text())
+        table = json.loads((root / "index.json").read_text())
     except (OSError, ValueError):
         return {}
+    return table if isinstance(table, dict) else {}
 
 
-def known_hash(path: Path, root: Path | None) -> str | None:
-    """The file's SHA-256 from the stat index, if the file is unchanged since."""
-    return _index(root).get(_stat_key(path)) if root else None
+def known_hash(root: Path | None, state: tuple) -> str | None:
+    """The file's SHA-256 from the stat index, if the file is unchanged since
+    and the index record is intact."""
+    if root is None:
+        return None
+    key = _key(state)
+    record = _index(root).get(key)
+    if not isinstance(record, dict):
+        return None
+    digest = record.get("sha256")
+    if not isinstance(digest, str) or record.get("check") != _record_check(key, digest):
+        return None
+    return digest
 
 
-def remember(path: Path, root: Path | None, digest: str) -> None:
-    """Record the file's hash in the stat index (the newest 1000 files are kept)."""
+def remember(root: Path | None, state: tuple, digest: str) -> None:
+    """Record the hash of the file in ``state`` (the newest ``INDEX_SIZE`` files are kept)."""
     if root is None:
         return
+    key = _key(state)
     table = _index(root)
-    table[_stat_key(path)] = digest
-    _write_json(root / "index.json", dict(list(table.items())[-1000:]))
+    table.pop(key, None)
+    table[key] = {"sha256": digest, "check": _record_check(key, digest)}
+    _write_json(root / "index.json", dict(list(table.items())[-INDEX_SIZE:]))
+
+
+def forget(root: Path, state: tuple) -> None:
+    """Drop the index record of the file in ``state``."""
+    table = _index(root)
+    if table.pop(_key(state), None) is not None:
+        _write_json(root / "index.json", table)
 
 
 def _write_json(path: Path, data) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".tmp-", suffix=".json")
-    with os.fdopen(fd, "w") as fh:
-        json.dump(data, fh)
-    os.replace(tmp, path)
+    try:
+        with os.fdopen(fd, "w") as fh:
+            json.dump(data, fh)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+
+
+def clean(root: Path) -> int:
+    """Remove partial entries and temporary files of interrupted runs; return how many."""
+    return clean_stale(root, BUILDING) + clean_stale(root, ".tmp-")
 
 
 def entry_dir(root: Path, digest: str) -> Path:
     return root / f"v{LAYOUT}-{digest}"
 
 
-def load(root: Path, digest: str):
-    """(meta, time, columns) memory-mapped from a complete entry, or None."""
-    folder = entry_dir(root, digest)
+def _canonical(obj) -> bytes:
+    return json.dumps(obj, sort_keys=True, separators=(",", ":")).encode()
+
+
+def _data_sha256(array: np.ndarray) -> str:
+    digest = hashlib.sha256()
+    flat = array.reshape(-1)
+    step = 1 << 22  # 32 MiB of float64 a call: hashlib releases the GIL on each
+    for a in range(0, max(flat.shape[0], 1), step):
+        digest.update(np.ascontiguousarray(flat[a:a + step]).data)
+    return digest.hexdigest()
+
+
+class Damaged(Exception):
+    """An entry failed a check (internal; :func:`load` turns it into a rebuild)."""
+
+
+def _read_entry(folder: Path, digest: str, verify: bool):
     try:
-        meta = json.loads((folder / "meta.json").read_text())
-        time = np.load(folder / "time.npy", mmap_mode="r")
-        cols = [np.load(folder / f"c{i}.npy", mmap_mode="r") for i in range(len(meta["names"]))]
-    except (OSError, ValueError, KeyError):
-        if folder.exists():
-            shutil.rmtree(folder, ignore_errors=True)  # partial or damaged: rebuild
+        stored = json.loads((folder / "meta.json").read_text())
+    except (OSError, ValueError) as exc:
+        raise Damaged(f"meta.json unreadable ({type(exc).__name__})") from None
+    if not isinstance(stored, dict) or not isinstance(stored.get("meta"), dict):
+        raise Damaged("meta.json has another layout")
+    meta, files = stored["meta"], stored.get("files")
+    if stored.get("meta_sha256") != hashlib.sha256(_canonical(
+            {"meta": meta, "files": files})).hexdigest():
+        raise Damaged("meta.json does not match its checksum")
+    if meta.get("sha256") != digest or meta.get("layout") != LAYOUT:
+        raise Damaged("the entry records another input hash")
+    names = [f"time.npy"] + [f"c{i}.npy" for i in range(len(meta["names"]))]
+    if not isinstance(files, dict) or sorted(files) != sorted(names):
+        raise Damaged("meta.json lists other column files")
+    arrays = []
+    for name in names:
+        path = folder / name
+        try:
+            if len(names) > MAP_LIMIT:
+                with open(path, "rb") as fh:
+                    if np.lib.format.read_magic(fh) != (1, 0):
+                        raise ValueError("version")
+                    shape, fortran, dtype = np.lib.format.read_array_header_1_0(fh)
+                    if fh.tell() != NPY_HEADER or fortran:
+                        raise ValueError("header")
+                    array = np.fromfile(fh, dtype=dtype)
+                if array.shape != shape:
+                    raise ValueError("truncated")
+            else:
+                array = np.load(path, mmap_mode="r")
+        except (OSError, ValueError, EOFError) as exc:
+            raise Damaged(f"{name} unreadable ({type(exc).__name__})") from None
+        if array.dtype != np.dtype("<f8") or array.shape != (meta["n"],):
+            raise Damaged(f"{name} has shape {array.shape} of {array.dtype}")
+        arrays.append(array)
+    if verify:
+        with ThreadPoolExecutor(2) as pool:
+            sums = list(pool.map(_data_sha256, arrays))
+        for name, got in zip(names, sums):
+            if got != files[name]:
+                raise Damaged(f"{name} does not match its checksum")
+    return meta, arrays[0], arrays[1:]
+
+
+def load(root: Path, digest: str, verify: bool = True, expect_probe: str | None = None):
+    """(meta, time, columns) from a complete, intact entry, or None.
+
+    Parameters
+    ----------
+    root : Path
+        Cache folder.
+    digest : str
+        SHA-256 of the input.
+    verify : bool
+        Check every column's checksum (False only for an entry this run just wrote).
+    expect_probe : str, optional
+        The input's :func:`probe`; an entry recording another is not served
+        (the index pointed at the wrong entry) but left in place.
+
+    A damaged entry is removed (the caller rebuilds it) with one note.
+    """
+    folder = entry_dir(root, digest)
+    if not folder.is_dir():
         return None
-    if any(c.shape != time.shape for c in cols) or time.shape[0] != meta["n"]:
+    try:
+        meta, time, cols = _read_entry(folder, digest, verify)
+    except (Damaged, KeyError, TypeError) as exc:
+        why = str(exc) if isinstance(exc, Damaged) else "meta.json lacks a field"
         shutil.rmtree(folder, ignore_errors=True)
+        note(f"cache entry {folder.name} was damaged ({why}); rebuilding it from the input")
+        return None
+    if expect_probe is not None and meta.get("probe") != expect_probe:
         return None
     return meta, time, cols
 
 
-def new_entry(root: Path) -> Path:
-    """A fresh temporary folder inside the cache for an entry being written."""
+def new_entry(root: Path) -> LockedFolder:
+    """A fresh locked temporary folder inside the cache for an entry being written."""
     root.mkdir(parents=True, exist_ok=True)
-    return Path(tempfile.mkdtemp(dir=root, prefix=".building-"))
+    return LockedFolder(root, BUILDING)
 
 
-def commit(tmp: Path, root: Path, digest: str, meta: dict) -> Path:
-    """Write ``meta.json`` last, then rename the folder into place."""
-    (tmp / "meta.json").write_text(json.dumps(meta))
+def commit(work: LockedFolder, root: Path, digest: str, meta: dict, files: dict) -> bool:
+    """Write ``meta.json`` (with its checksums) last, then rename the folder into place.
+
+    Returns
+    -------
+    bool
+        False if another run put the entry there first (theirs is kept).
+    """
+    stored = {"meta": meta, "files": files}
+    stored["meta_sha256"] = hashlib.sha256(_canonical(stored)).hexdigest()
+    with open(work.path / "meta.json", "w") as fh:
+        json.dump(stored, fh)
     target = entry_dir(root, digest)
     try:
-        os.rename(tmp, target)
+        os.rename(work.path, target)
     except OSError:  # another run won the race: keep theirs
-        shutil.rmtree(tmp, ignore_errors=True)
-    return target
+        work.release()
+        return False
+    work.release(remove=False)
+    return True

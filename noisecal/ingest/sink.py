@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import ctypes
+import hashlib
 import io
 from pathlib import Path
 
@@ -43,6 +44,14 @@ class MemorySink:
         return time, cols
 
 
+MAX_OPEN_FILES = 64
+"""Columns up to which each ``.npy`` file stays open while blocks stream in. Wider
+files (thousands of columns) buffer blocks and open each file only to append,
+so the run never holds one descriptor per column (the usual limit is 1024)."""
+FLUSH_BYTES = 1 << 22
+"""Buffered bytes at which a wide sink appends its blocks to the files."""
+
+
 class NpySink:
     """Stream blocks into one ``.npy`` file per column; ``finish`` memory-maps them.
 
@@ -52,38 +61,85 @@ class NpySink:
         Folder for ``time.npy`` and ``c<i>.npy`` (created by the caller).
     channels : int
         Number of channel columns.
+    checksum : bool
+        Keep the SHA-256 of each column's data bytes (after the header), for
+        the cache's checks on load; see :attr:`checksums`.
     """
 
-    def __init__(self, folder: Path, channels: int):
+    def __init__(self, folder: Path, channels: int, checksum: bool = False):
         self.paths = [folder / "time.npy"] + [folder / f"c{i}.npy" for i in range(channels)]
-        self._files = [open(p, "wb") for p in self.paths]
-        for fh in self._files:
-            fh.write(b"\0" * NPY_HEADER)
+        self._digests = [hashlib.sha256() for _ in self.paths] if checksum else None
+        self._wide = len(self.paths) > MAX_OPEN_FILES
+        self._files: list = []
+        self._pending: list = [[] for _ in self.paths] if self._wide else []
+        self._pending_bytes = 0
+        if self._wide:
+            for p in self.paths:
+                with open(p, "wb") as fh:
+                    fh.write(b"\0" * NPY_HEADER)
+        else:
+            for p in self.paths:
+                self._files.append(open(p, "wb"))
+                self._files[-1].write(b"\0" * NPY_HEADER)
         self.n = 0
 
     def append(self, time: np.ndarray, cols: list) -> None:
-        for fh, block in zip(self._files, [time] + list(cols)):
-            np.ascontiguousarray(block, dtype="<f8").tofile(fh)
+        for k, block in enumerate([time] + list(cols)):
+            data = np.ascontiguousarray(block, dtype="<f8")
+            if self._digests is not None:
+                self._digests[k].update(data.data)
+            if self._wide:
+                self._pending[k].append(data)
+                self._pending_bytes += data.nbytes
+            else:
+                data.tofile(self._files[k])
         self.n += int(np.shape(time)[0])
+        if self._wide and self._pending_bytes >= FLUSH_BYTES:
+            self._flush()
+
+    def _flush(self) -> None:
+        for p, blocks in zip(self.paths, self._pending):
+            if blocks:
+                with open(p, "ab") as fh:
+                    for data in blocks:
+                        data.tofile(fh)
+                blocks.clear()
+        self._pending_bytes = 0
+
+    @property
+    def checksums(self) -> dict:
+        """File name → SHA-256 (hex) of its data bytes, as appended so far."""
+        if self._digests is None:
+            raise RuntimeError("this sink was made without checksum=True")
+        return {p.name: d.hexdigest() for p, d in zip(self.paths, self._digests)}
 
     def close(self) -> None:
         for fh in self._files:
             if not fh.closed:
                 fh.close()
+        self._pending = [[] for _ in self._pending]
 
     def finish(self, in_memory: bool = False) -> tuple[np.ndarray, list]:
         """Complete the files; return memory maps, or arrays read into memory.
 
         Reading back with ``fromfile`` costs one copy in memory; the file's
-        pages stay in the page cache, outside the process.
+        pages stay in the page cache, outside the process. A wide sink is read
+        into memory whatever ``in_memory`` says: each memory map holds a file
+        descriptor.
         """
         head = npy_header(self.n)
-        for fh in self._files:
-            fh.flush()
-            fh.seek(0)
-            fh.write(head)
-            fh.close()
-        if in_memory:
+        if self._wide:
+            self._flush()
+            for p in self.paths:
+                with open(p, "r+b") as fh:
+                    fh.write(head)
+        else:
+            for fh in self._files:
+                fh.flush()
+                fh.seek(0)
+                fh.write(head)
+                fh.close()
+        if in_memory or self._wide:
             arrays = [np.fromfile(p, dtype="<f8", offset=NPY_HEADER) for p in self.paths]
         else:
             arrays = [np.load(p, mmap_mode="r") for p in self.paths]

@@ -72,7 +72,7 @@ def test_partial_entry_is_rebuilt(tmp_path, fresh_cache):
     (folder / "c1.npy").write_bytes(b"truncated")
     again = read_recording(path)
     np.testing.assert_array_equal(again.samples, expected)
-    assert json.loads((folder / "meta.json").read_text())["n"] == n
+    assert json.loads((folder / "meta.json").read_text())["meta"]["n"] == n
 
 
 def test_no_cache_writes_nothing(tmp_path, fresh_cache):
