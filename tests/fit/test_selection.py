@@ -117,3 +117,27 @@ def test_resolution_tables():
             bad += [(n, name, t, v) for i, (t, v) in enumerate(zip(TERM_NAMES, r))
                     if c2[i] == 0 and v > limit.get(i, 0.05)]
     assert not bad, bad
+
+
+@pytest.mark.slow
+def test_resolution_power_against_strength():
+    """Share of 100 seeded 2^16-sample records that resolve random walk, bias
+    instability or ramp, against where the term's Allan deviation crosses the white
+    noise's (as a fraction of the record). Printed for the README; a term crossing at
+    1/32 of the record or earlier is resolved in at least 85 % of records (measured
+    90-97 %). IEEE Std 952 Annex C expressions for the crossings."""
+    from noisecal.fit.simulate import FLICKER_FLOOR
+
+    n = 2 ** 16
+    record = n * PERIOD
+    for frac in (1 / 2, 1 / 8, 1 / 32, 1 / 64):
+        tc = record * frac
+        row = []
+        for i, c2 in ((3, [0, N2, 0, 3 * N2 / tc ** 2, 0]),
+                      (2, [0, N2, N2 / tc / FLICKER_FLOOR, 0, 0]),
+                      (4, [0, N2, 0, 0, 2 * N2 / tc ** 3])):
+            row.append(rates(c2, n, 100, 70000)[i])
+        print(f"crossing at {frac:.4f} of the record: random walk {row[0]:.2f}, "
+              f"bias instability {row[1]:.2f}, ramp {row[2]:.2f}")
+        if frac <= 1 / 32:
+            assert min(row) >= 0.85, (frac, row)
