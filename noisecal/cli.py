@@ -3,12 +3,16 @@
 from __future__ import annotations
 
 import argparse
+import os
 import shlex
+import signal
 import sys
+import threading
 
 from . import __version__
 from .errors import InputError, NoisecalError
-from .history import DEFAULT_DB
+from .export.atomic import STDOUT, remove_leftovers
+from .history import DEFAULT_DB, printable
 from .jobs.result import ParameterError
 
 EXIT_ERROR = 2
@@ -19,6 +23,33 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message: str):
         self.exit(EXIT_ERROR, f"{self.prog}: error: {message}; see '{self.prog} --help'\n")
+
+
+def _ranged(kind, low=None, high=None, low_open=False, high_open=False, example=""):
+    """An argparse type: a number of ``kind`` within bounds (one-line error otherwise)."""
+    def parse(text: str):
+        try:
+            value = kind(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(
+                f"{text!r} is not {'an integer' if kind is int else 'a number'}") from None
+        if value != value or (low is not None and (value < low or low_open and value == low)) \
+                or (high is not None and (value > high or high_open and value == high)):
+            where = " and ".join(b for b in (
+                (f"{'above' if low_open else 'at least'} {low}" if low is not None else ""),
+                (f"{'below' if high_open else 'at most'} {high}" if high is not None else ""))
+                if b)
+            raise argparse.ArgumentTypeError(f"{text} is out of range; give a value {where}"
+                                             + (f", e.g. {example}" if example else ""))
+        return value
+    parse.__name__ = "integer" if kind is int else "number"
+    return parse
+
+
+SEED = _ranged(int, 0, 2**32 - 1, example="1")
+"""Seeds numpy accepts (``SeedSequence`` refuses negative ones with a traceback)."""
+# The other numeric options are checked by the jobs (ParameterError, InputError), whose
+# messages the CLI turns into the option's.
 
 
 def _history_options(p) -> None:
@@ -38,14 +69,14 @@ def _parser() -> argparse.ArgumentParser:
 
     s = sub.add_parser("static", help="characterise a recording made at rest")
     s.add_argument("recording", help="CSV, Parquet or .npz; columns 'name [unit]', time first")
-    s.add_argument("-o", "--output", required=True, help="YAML block to write")
+    s.add_argument("-o", "--output", required=True, help="YAML block to write (- for standard output)")
     s.add_argument("--dt", type=float, help="filter time step, s (default: sample period)")
     s.add_argument("--channels", help="comma-separated channels, in filter order")
     s.add_argument("--plot", help="PNG path (default: beside the YAML)")
     s.add_argument("--repair", choices=["sort", "drop"],
                    help="repair timestamps that are not increasing (recorded in provenance)")
     s.add_argument("--reps", type=int, default=200, help="bootstrap replicates (default 200)")
-    s.add_argument("--seed", type=int, default=1, help="bootstrap seed (default 1)")
+    s.add_argument("--seed", type=SEED, default=1, help="bootstrap seed (default 1)")
     s.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     s.add_argument("--quiet", action="store_true", help="no progress bar")
     s.add_argument("--no-cache", action="store_true",
@@ -59,7 +90,7 @@ def _parser() -> argparse.ArgumentParser:
     m.add_argument("--odometry", metavar="CONFIG",
                    help="the recording is wheel odometry (encoder ticks or increments) "
                    "described by this config YAML: fit the odometry motion model instead")
-    m.add_argument("-o", "--output", required=True, help="YAML block to write")
+    m.add_argument("-o", "--output", required=True, help="YAML block to write (- for standard output)")
     m.add_argument("--plot", help="PNG path (default: beside the YAML)")
     m.add_argument("--covariate", help="fit sigma^2 = a + b*x^2 against this truth quantity "
                    "(speed, turn_rate, a truth channel, ...)")
@@ -67,7 +98,7 @@ def _parser() -> argparse.ArgumentParser:
                    help="probability of the chi-square gate (default 0.997)")
     m.add_argument("--max-offset", type=float, default=1.0,
                    help="largest sensor-truth time offset searched, s (default 1)")
-    m.add_argument("--seed", type=int, default=1, help="seed of the robust fit (default 1)")
+    m.add_argument("--seed", type=SEED, default=1, help="seed of the robust fit (default 1)")
     m.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     m.add_argument("--quiet", action="store_true", help="no progress bar")
     m.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
@@ -79,14 +110,14 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--camera", required=True, help="camera YAML: intrinsics, distortion, pose")
     c.add_argument("--poses", help="per-frame platform poses (time, x, y, z [m], roll, pitch, "
                    "yaw [rad], world-from-body); the camera file's pose is then body-from-camera")
-    c.add_argument("-o", "--output", required=True, help="YAML block to write")
+    c.add_argument("-o", "--output", required=True, help="YAML block to write (- for standard output)")
     c.add_argument("--plot", help="PNG path (default: beside the YAML)")
     c.add_argument("--ground", choices=["ray", "homography", "dlt"], default="ray",
                    help="pixels to ground: ray-plane (default), the camera file's homography, "
                    "or one estimated by normalized DLT from the floor targets")
     c.add_argument("--gate", type=float, default=0.997,
                    help="probability of the chi-square gate (default 0.997)")
-    c.add_argument("--seed", type=int, default=1, help="seed (robust fit, Monte Carlo)")
+    c.add_argument("--seed", type=SEED, default=1, help="seed (robust fit, Monte Carlo)")
     c.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     _history_options(c)
 
@@ -94,7 +125,8 @@ def _parser() -> argparse.ArgumentParser:
                        "0 consistent, 1 changed, 3 inconclusive, 2 error")
     r.add_argument("baseline", help="a YAML block written by static, motion or targets")
     r.add_argument("recording", help="the new recording (sensor, odometry or detections)")
-    r.add_argument("-o", "--output", help="YAML block to write (and a PNG beside it)")
+    r.add_argument("-o", "--output",
+                   help="YAML block to write (and a PNG beside it; - for standard output)")
     r.add_argument("--truth", help="the new drive's truth (motion and odometry baselines)")
     r.add_argument("--limits", help="engineering limits YAML: limits: {channel: {parameter: "
                    "{max: x}}} (SI)")
@@ -128,7 +160,8 @@ def _parser() -> argparse.ArgumentParser:
     h.add_argument("--param", help="only this parameter (name, or channel.name)")
     h.add_argument("--since", help="only runs on or after this date (ISO, e.g. 2026-06-01)")
     h.add_argument("--export", choices=["csv"], help="write one row per run and parameter")
-    h.add_argument("-o", "--output", help="path of the export (with --export)")
+    h.add_argument("-o", "--output",
+                   help="path of the export (with --export; - for standard output)")
     h.add_argument("--plot", help="PNG: each parameter with its interval over time")
     h.add_argument("--overwrite", action="store_true", help="replace existing outputs")
 
@@ -142,66 +175,152 @@ def _parser() -> argparse.ArgumentParser:
     return p
 
 
-def _store(args, job: str, sections: dict, sha256: str, verdict: str | None = None) -> None:
-    """Record the run in the history database when --unit was given."""
+EXIT_PIPE = 141
+"""Standard output closed early (``| head``): 128 + SIGPIPE, as a shell reports a
+program the pipe ended; never 1, which a re-check uses for 'changed'."""
+
+_FACTS = {
+    "static": lambda r: (r.sections, r.recording.source.sha256, None),
+    "motion": lambda r: (r.sections, r.sensor.source.sha256, None),
+    "motion --odometry": lambda r: (r.sections, r.odometry.source.sha256, None),
+    "targets": lambda r: (r.sections, r.detections.sha256, None),
+    "recheck": lambda r: (r.new_sections, (r.new_sections.get("provenance", {}).get("input")
+                                           or r.new_sections.get("provenance", {})
+                                           .get("detections") or {}).get("sha256", ""),
+                          r.verdict),
+}
+"""What each job stores in the history: sections, input SHA-256, verdict."""
+
+
+class Signalled(KeyboardInterrupt):
+    """SIGTERM or SIGHUP, raised like Ctrl-C so that every cleanup path runs."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _on_signal(signum, frame):
+    # Further signals would cut the cleanup short: the first one decides.
+    for sig in _SIGNALS + (signal.SIGINT,):
+        signal.signal(sig, signal.SIG_IGN)
+    raise Signalled(signum)
+
+
+_SIGNALS = tuple(getattr(signal, n) for n in ("SIGTERM", "SIGHUP") if hasattr(signal, n))
+
+
+def _say(text: str, to_stderr: bool = False) -> None:
+    """Print text for a terminal: names from files and options have their control
+    characters shown escaped, never acted on."""
+    print("\n".join(printable(line) for line in str(text).split("\n")),
+          file=sys.stderr if to_stderr else sys.stdout)
+
+
+def _recorder(args, job: str):
+    """The history the run is stored in (opened and validated now, before any work)."""
     if not getattr(args, "unit", None):
-        return
+        return None
     from pathlib import Path
 
-    from .jobs.history import store
+    from .jobs.history import Recorder
 
     source = getattr(args, "recording", None) or getattr(args, "detections", "")
-    run = store(args.db, args.unit, args.sensor or Path(source).name, job, sections, sha256,
-                verdict)
-    print(f"stored as run {run} of unit {args.unit} in {args.db}")
+    return Recorder(args.db, args.unit, args.sensor or Path(source).name, job, _FACTS[job])
 
 
 def main(argv: list[str] | None = None) -> int:
-    """Entry point of the ``noisecal`` console script; returns the exit status."""
+    """Entry point of the ``noisecal`` console script; returns the exit status.
+
+    Exit statuses: 0 done (a re-check: consistent), 1 a re-check found a change, 3 a
+    re-check is inconclusive, 2 an error (one line on stderr, nothing written),
+    128 + n after signal n (130 Ctrl-C, 143 SIGTERM, 129 SIGHUP; nothing written),
+    141 when standard output was closed early.
+    """
     argv = sys.argv[1:] if argv is None else argv
     args = _parser().parse_args(argv)
     command = "noisecal " + shlex.join(argv)
+    previous = {}
+    if threading.current_thread() is threading.main_thread():
+        for sig in _SIGNALS:
+            previous[sig] = signal.signal(sig, _on_signal)
+    try:
+        return _run(args, command, lambda job: _recorder(args, job))
+    except ParameterError as exc:
+        _say(f"noisecal: error: {exc.as_option()}", True)
+        return EXIT_ERROR
+    except NoisecalError as exc:
+        _say(f"noisecal: error: {exc}", True)
+        return EXIT_ERROR
+    except KeyboardInterrupt as exc:
+        remove_leftovers()
+        signum = exc.signum if isinstance(exc, Signalled) else signal.SIGINT
+        try:
+            print(f"noisecal: interrupted ({signal.Signals(signum).name}); nothing was "
+                  "written", file=sys.stderr)
+        except OSError:
+            pass
+        return 128 + int(signum)
+    except BrokenPipeError:
+        # Python would report the pipe again when flushing at exit: point stdout at
+        # /dev/null so that it ends quietly.
+        try:
+            devnull = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(devnull, sys.stdout.fileno())
+        except (OSError, ValueError):
+            pass
+        return EXIT_PIPE
+    finally:
+        remove_leftovers()
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
+
+
+def _run(args, command: str, recorder) -> int:
+    """Dispatch one parsed command line; returns the exit status."""
+    to_stdout = getattr(args, "output", None) == STDOUT
+    # With -o - standard output carries the YAML (or CSV) alone; the rest goes to stderr.
+    say = (lambda text: _say(text, True)) if to_stdout else _say
+    record = None
     try:
         if args.command == "static":
             from .jobs.static import run_static, summary
 
             channels = [c.strip() for c in args.channels.split(",")] if args.channels else None
+            record = recorder("static")
             result = run_static(args.recording, args.output, args.plot, args.dt, channels,
                                 args.repair, args.overwrite, args.reps, args.seed,
-                                args.quiet, command, use_cache=not args.no_cache)
-            print(summary(result))
-            print(f"wrote {args.output}")
-            _store(args, "static", result.sections, result.recording.source.sha256)
+                                args.quiet, command, use_cache=not args.no_cache,
+                                record=record)
+            say(summary(result))
         elif args.command == "motion" and args.odometry:
             from .jobs.odometry import run_odometry, summary as odometry_summary
 
             if args.map or args.covariate:
                 raise InputError("--odometry takes the pose channels from its config; "
                                  "leave out --map and --covariate")
+            record = recorder("motion --odometry")
             result = run_odometry(args.recording, args.truth, args.odometry, args.output,
                                   args.plot, args.max_offset, args.overwrite, args.quiet,
-                                  command, use_cache=not args.no_cache)
-            print(odometry_summary(result))
-            print(f"wrote {args.output}")
-            _store(args, "motion --odometry", result.sections, result.odometry.source.sha256)
+                                  command, use_cache=not args.no_cache, record=record)
+            say(odometry_summary(result))
         elif args.command == "motion":
             from .jobs.motion import run_motion, summary as motion_summary
 
+            record = recorder("motion")
             result = run_motion(args.recording, args.truth, args.output, args.map, args.plot,
                                 args.covariate, args.gate, args.max_offset, args.overwrite,
-                                args.seed, args.quiet, command, use_cache=not args.no_cache)
-            print(motion_summary(result))
-            print(f"wrote {args.output}")
-            _store(args, "motion", result.sections, result.sensor.source.sha256)
+                                args.seed, args.quiet, command, use_cache=not args.no_cache,
+                                record=record)
+            say(motion_summary(result))
         elif args.command == "targets":
             from .jobs.targets import run_targets, summary as targets_summary
 
+            record = recorder("targets")
             result = run_targets(args.detections, args.survey, args.camera, args.output,
                                  args.plot, args.ground, args.gate, args.overwrite, args.seed,
-                                 command, args.poses)
-            print(targets_summary(result))
-            print(f"wrote {args.output}")
-            _store(args, "targets", result.sections, result.detections.sha256)
+                                 command, args.poses, record=record)
+            say(targets_summary(result))
         elif args.command == "recheck":
             from .jobs.recheck import run_recheck, summary as recheck_summary
 
@@ -212,49 +331,68 @@ def main(argv: list[str] | None = None) -> int:
                                  "e.g. 10,30") from None
             files = {k: getattr(args, k) for k in ("map", "config", "camera", "survey")
                      if getattr(args, k)}
+            record = recorder("recheck")
             result = run_recheck(args.baseline, args.recording, args.output, args.truth,
                                  args.limits, args.tolerance, args.overwrite,
                                  use_cache=not args.no_cache, command=command,
                                  alpha=args.alpha, files=files, poses=args.poses,
                                  accept_edited=args.accept_edited,
-                                 verdict_on=args.verdict_on, at=at)
-            print(recheck_summary(result))
-            if args.output:
-                print(f"wrote {args.output}")
-            prov = result.new_sections.get("provenance", {})
-            sha = (prov.get("input") or prov.get("detections") or {}).get("sha256", "")
-            _store(args, "recheck", result.new_sections, sha, result.verdict)
+                                 verdict_on=args.verdict_on, at=at, record=record)
+            say(recheck_summary(result))
+            _done(say, args, record)
             return result.exit_status
         elif args.command == "history":
-            from .jobs import history as hist
-
-            if args.export and not args.output:
-                raise InputError("--export csv needs -o OUT.csv")
-            print(hist.table(args.db, args.unit, args.param, args.since))
-            if args.export:
-                rows = hist.export_csv(args.db, args.unit, args.output, args.param, args.since,
-                                       args.overwrite)
-                print(f"wrote {rows} row(s) to {args.output}")
-            if args.plot:
-                hist.plot(args.db, args.unit, args.plot, args.param, args.since, args.overwrite)
-                print(f"wrote {args.plot}")
+            return _history(args, say)
         elif args.command == "inspect":
             from .jobs.inspect import run_inspect
 
-            print(run_inspect(args.recording, args.repair, use_cache=not args.no_cache))
+            _say(run_inspect(args.recording, args.repair, use_cache=not args.no_cache))
         elif args.command == "demo":
             from .jobs.demo import run_demo
 
-            print(run_demo(quiet=args.quiet))
-    except ParameterError as exc:
-        print(f"noisecal: error: {exc.as_option()}", file=sys.stderr)
-        return EXIT_ERROR
-    except NoisecalError as exc:
-        print(f"noisecal: error: {exc}", file=sys.stderr)
-        return EXIT_ERROR
-    except KeyboardInterrupt:
-        print("noisecal: interrupted; nothing was written", file=sys.stderr)
-        return 130
+            _say(run_demo(quiet=args.quiet))
+        if args.command in _JOBS:
+            _done(say, args, record)
+        return 0
+    finally:
+        if record is not None:
+            record.close()
+
+
+_JOBS = ("static", "motion", "targets")
+
+
+def _done(say, args, record) -> None:
+    """The closing lines: what was written and where the run was stored."""
+    if args.output and args.output != STDOUT:
+        say(f"wrote {args.output}")
+    if record is not None and record.run_id is not None:
+        say(f"stored as run {record.run_id} of unit {args.unit} in {args.db}")
+
+
+def _history(args, say) -> int:
+    from pathlib import Path
+
+    from .export.atomic import check_target
+    from .jobs import history as hist
+
+    if args.export and not args.output:
+        raise InputError("--export csv needs -o OUT.csv")
+    if args.output and not args.export:
+        raise InputError(f"-o {args.output}: give --export csv with it")
+    targets = [Path(t) for t in (args.output, args.plot) if t and t != STDOUT]
+    if len(targets) == 2 and targets[0].resolve() == targets[1].resolve():
+        raise InputError(f"--plot {args.plot}: the same path as -o; give each its own path")
+    for target in targets:  # all checked before anything is written
+        check_target(target, [Path(args.db)], args.overwrite)
+    say(hist.table(args.db, args.unit, args.param, args.since))
+    if args.export:
+        rows = hist.export_csv(args.db, args.unit, args.output, args.param, args.since,
+                               args.overwrite)
+        say(f"wrote {rows} row(s) to {args.output}")
+    if args.plot:
+        hist.plot(args.db, args.unit, args.plot, args.param, args.since, args.overwrite)
+        say(f"wrote {args.plot}")
     return 0
 
 

@@ -4,29 +4,86 @@ from __future__ import annotations
 
 import csv
 import io
+from contextlib import contextmanager
 from pathlib import Path
 
 import numpy as np
 
 from .. import __version__, history
 from ..errors import InputError
-from ..export.atomic import atomic_path, check_target, write_text
+from ..export.atomic import STDOUT, Staged, check_target
 from .recheck import estimates_of
 
 
-def store(db: str, unit: str, sensor: str, job: str, sections: dict, input_sha256: str,
-          verdict: str | None = None, parameter_sections: dict | None = None) -> int:
-    """Record a run (its YAML content's fitted numbers) under ``unit``."""
+def parameters_of(sections: dict) -> list:
+    """A run's fitted numbers (its YAML content) as history rows."""
     params = []
-    for channel, name, e, _ in estimates_of(parameter_sections or sections):
+    for channel, name, e, _ in estimates_of(sections):
         if "value" in e:
             lo, hi = e.get("ci95", [None, None])
             params.append(history.Parameter(channel, name, e["value"], lo, hi, e.get("unit", "")))
         elif "upper_bound" in e:
             params.append(history.Parameter(channel, name, None, None, e["upper_bound"],
                                             e.get("unit", ""), True))
+    return params
+
+
+def store(db: str, unit: str, sensor: str, job: str, sections: dict, input_sha256: str,
+          verdict: str | None = None, parameter_sections: dict | None = None) -> int:
+    """Record a run (its YAML content's fitted numbers) under ``unit``."""
     return history.record_run(db, unit, sensor, job, input_sha256, f"noisecal {__version__}",
-                              params, verdict)
+                              parameters_of(parameter_sections or sections), verdict)
+
+
+class Recorder:
+    """A history database opened, validated and migrated before a run's analysis.
+
+    Calling it with the job's result gives the context manager in which the run is
+    stored: its row is committed when the block ends without error, so a job puts
+    its files in place inside it and the files and the row appear together.
+
+    Parameters
+    ----------
+    db : str
+        Database path (also an input no output may replace).
+    unit, sensor, job : str
+        What the run is stored as.
+    facts : callable
+        ``facts(result) -> (sections, input_sha256, verdict)``.
+    """
+
+    def __init__(self, db: str, unit: str, sensor: str, job: str, facts):
+        if not unit.strip():
+            raise InputError("--unit: give the unit's serial number (not empty)")
+        self.path = Path(db)
+        self.unit, self.sensor, self.job, self.facts = unit, sensor, job, facts
+        self.run_id: int | None = None
+        # An existing database is validated (and migrated) now, before any work; a new
+        # one is only checked for a writable folder and created when the run is stored,
+        # so that a run refused later leaves no empty database behind.
+        self._con = history.connect(self.path) if self.path.exists() else None
+        if self._con is None:
+            history.check_new(self.path)
+
+    @property
+    def paths(self) -> list:
+        """Files the run must not write to: the database and its journal files."""
+        return [self.path, Path(f"{self.path}-wal"), Path(f"{self.path}-shm")]
+
+    @contextmanager
+    def __call__(self, result):
+        sections, sha, verdict = self.facts(result)
+        if self._con is None:
+            self._con = history.connect(self.path)
+        with history.adding_run(self._con, self.path, self.unit, self.sensor, self.job, sha,
+                                f"noisecal {__version__}", parameters_of(sections),
+                                verdict) as run_id:
+            yield run_id
+        self.run_id = run_id
+
+    def close(self) -> None:
+        if self._con is not None:
+            self._con.close()
 
 
 def table(db: str, unit: str, param: str | None = None, since: str | None = None) -> str:
@@ -54,8 +111,11 @@ def table(db: str, unit: str, param: str | None = None, since: str | None = None
 
 def export_csv(db: str, unit: str, out: str, param: str | None = None,
                since: str | None = None, overwrite: bool = False) -> int:
-    """One row per run and parameter, with a ``run`` column; returns the row count."""
-    check_target(Path(out), [Path(db)], overwrite)
+    """One row per run and parameter, with a ``run`` column; returns the row count.
+
+    ``out`` ``-`` writes the CSV to standard output."""
+    if out != STDOUT:
+        check_target(Path(out), [Path(db)], overwrite)
     runs = history.runs_of(db, unit, param, since)
     buf = io.StringIO()
     w = csv.writer(buf)
@@ -71,7 +131,9 @@ def export_csv(db: str, unit: str, out: str, param: str | None = None,
                         "" if p.lower is None else repr(p.lower),
                         "" if p.upper is None else repr(p.upper), p.unit, int(p.is_bound)])
             count += 1
-    write_text(Path(out), buf.getvalue())
+    with Staged(overwrite) as staged:
+        staged.text(out if out == STDOUT else Path(out), buf.getvalue())
+        staged.commit()
     return count
 
 
@@ -115,6 +177,9 @@ def plot(db: str, unit: str, out: str, param: str | None = None, since: str | No
     fig.suptitle(history.printable(f"unit {unit}: parameters over time (95 %; ▼ upper bound)"),
                  fontsize=10)
     fig.tight_layout()
-    with atomic_path(Path(out)) as tmp:
-        fig.savefig(tmp, dpi=100, format="png")
-    plt.close(fig)
+    try:
+        with Staged(overwrite) as staged:
+            fig.savefig(staged.path(Path(out)), dpi=100, format="png")
+            staged.commit()
+    finally:
+        plt.close(fig)

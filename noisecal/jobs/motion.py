@@ -18,7 +18,7 @@ from ..analysis.align import Alignment, estimate_offset, residuals
 from ..analysis.derived import truth_series
 from ..errors import AnalysisError, InputError, UnitError
 from ..export import yaml_block
-from ..export.atomic import output_paths, write_text
+from ..export.atomic import STDOUT, Staged, output_paths
 from ..export.motion_plot import motion_figure
 from ..fit.measurement import GATE_PROBABILITY, MeasurementModel, fit_measurement
 from ..ingest import read_recording
@@ -283,7 +283,7 @@ def run_motion(sensor_path: str, truth_path: str, out: str, map_path: str | None
                plot: str | None = None, covariate: str | None = None,
                gate_probability: float = GATE_PROBABILITY, max_offset: float = 1.0,
                overwrite: bool = False, seed: int = 1, quiet: bool = False,
-               command: str = "", use_cache: bool = True) -> MotionResult:
+               command: str = "", use_cache: bool = True, record=None) -> MotionResult:
     """Read, analyse and write the YAML block and the plot.
 
     Parameters
@@ -300,9 +300,12 @@ def run_motion(sensor_path: str, truth_path: str, out: str, map_path: str | None
         Truth quantity to fit the variance law against (overrides the map's).
     gate_probability, max_offset, seed, command
         See :func:`analyse`.
+    record : noisecal.jobs.history.Recorder, optional
+        The history the run is stored in, together with its files.
     """
     inputs = [sensor_path, truth_path] + ([map_path] if map_path else [])
-    out_path, plot_path = output_paths(out, plot, inputs, overwrite)
+    out_path, plot_path = output_paths(out, plot, inputs, overwrite,
+                                       getattr(record, "paths", ()))
     bars = StageBars(quiet)
     try:
         sensor = read_recording(sensor_path, use_cache=use_cache, progress=bars)
@@ -312,8 +315,11 @@ def run_motion(sensor_path: str, truth_path: str, out: str, map_path: str | None
     mapping = (read_map(map_path, covariate) if map_path
                else same_names(sensor.channels, truth.channels, covariate))
     res = analyse(sensor, truth, mapping, gate_probability, max_offset, seed, command)
-    motion_figure(res, plot_path)
-    write_text(out_path, res._render(out_path))
+    with Staged(overwrite) as staged:
+        if plot_path is not None:
+            motion_figure(res, staged.path(plot_path))
+        staged.text(out_path, res._render(None if out_path == STDOUT else out_path))
+        staged.commit(record(res) if record else None)
     return res
 
 

@@ -18,7 +18,7 @@ from ..analysis.align import Alignment, estimate_offset
 from ..analysis.derived import rate_series, truth_series
 from ..errors import AnalysisError, InputError
 from ..export import yaml_block
-from ..export.atomic import output_paths, write_text
+from ..export.atomic import STDOUT, Staged, output_paths
 from ..export.odometry_plot import odometry_figure
 from ..fit.odometry import OdometryModel, decompose, encoder_pose, fit_odometry, \
     quantization, quantization_floor, step_noise
@@ -303,11 +303,12 @@ def summary(res: OdometryResult) -> str:
 
 def run_odometry(odometry_path: str, truth_path: str, config_path: str, out: str,
                  plot: str | None = None, max_offset: float = 1.0, overwrite: bool = False,
-                 quiet: bool = False, command: str = "", use_cache: bool = True
-                 ) -> OdometryResult:
-    """Read, analyse and write the odometry YAML block and plot."""
+                 quiet: bool = False, command: str = "", use_cache: bool = True,
+                 record=None) -> OdometryResult:
+    """Read, analyse and write the odometry YAML block and plot (and store the run in
+    ``record``, a :class:`noisecal.jobs.history.Recorder`, together with them)."""
     out_path, plot_path = output_paths(out, plot, [odometry_path, truth_path, config_path],
-                                       overwrite)
+                                       overwrite, getattr(record, "paths", ()))
     cfg = read_odometry_config(config_path)
     bars = StageBars(quiet)
     try:
@@ -316,6 +317,9 @@ def run_odometry(odometry_path: str, truth_path: str, config_path: str, out: str
     finally:
         bars.close()
     res = analyse(odo, truth, cfg, max_offset, command)
-    odometry_figure(res, plot_path)
-    write_text(out_path, res._render(out_path))
+    with Staged(overwrite) as staged:
+        if plot_path is not None:
+            odometry_figure(res, staged.path(plot_path))
+        staged.text(out_path, res._render(None if out_path == STDOUT else out_path))
+        staged.commit(record(res) if record else None)
     return res

@@ -27,7 +27,7 @@ import numpy as np
 from .. import __version__
 from ..errors import InputError
 from ..export import yaml_block
-from ..export.atomic import output_paths, write_text
+from ..export.atomic import STDOUT, Staged, output_paths
 from ..fit import compare
 from ..fit.simulate import TERM_NAMES
 from ..ingest.yaml_file import read_yaml
@@ -809,27 +809,44 @@ def run_recheck(baseline: str, recording: str, out: str | None = None,
                 **options) -> RecheckResult:
     """Re-check and write the YAML block (and for a static baseline the Allan plot).
 
-    ``options`` are :func:`recheck`'s keyword-only ones. Nothing is written when the
-    re-check fails.
+    ``options`` are :func:`recheck`'s keyword-only ones; ``record`` (a
+    :class:`noisecal.jobs.history.Recorder`) stores the run together with its files.
+    ``out`` ``-`` writes the block to standard output (and no plot). Nothing is
+    written when the re-check fails.
     """
+    record = options.pop("record", None)
     files = options.get("files") or {}
     inputs = ([baseline, recording] + ([truth] if truth else []) + ([limits] if limits else [])
               + [p for p in files.values() if p] + ([options["poses"]]
                                                      if options.get("poses") else []))
     out_path = plot_path = None
     if out:
-        out_path, plot_path = output_paths(out, None, inputs, overwrite)
+        # Files the baseline's provenance names are inputs too (its side files, the
+        # recordings it was made from), wherever the baseline's folder puts them.
+        base = read_yaml(Path(baseline), "baseline")
+        prov = base.get("provenance") if isinstance(base, dict) else None
+        folder = Path(baseline).resolve().parent
+        for key, value in (prov.items() if isinstance(prov, dict) else ()):
+            stored = value.get("path") if isinstance(value, dict) else value
+            if isinstance(stored, str) and stored and not stored.startswith("("):
+                inputs += [folder / stored, folder / Path(stored).name, Path(stored)]
+        out_path, plot_path = output_paths(out, None, inputs, overwrite,
+                                           getattr(record, "paths", ()))
+        if out_path == STDOUT:
+            plot_path = None
     res = recheck(baseline, recording, truth, limits, tolerance, use_cache, command, alpha,
                   **options)
-    if out_path:
-        if res.job == "static":
+    with Staged(overwrite) as staged:
+        if plot_path is not None and res.job == "static":
             from ..export.plot import recheck_figure
 
-            recheck_figure(read_yaml(Path(baseline), "baseline"), res.new_sections, plot_path)
-        write_text(out_path, yaml_block.render(res.sections, f"noisecal re-check ({LAYOUT})",
-                                               {"verdict": "consistent | changed | "
-                                                "inconclusive (exit status 0 | 1 | 3)",
-                                                "undecided": "Gated parameters this recording "
-                                                "could not decide, and what more data each "
-                                                "needs."}))
+            recheck_figure(read_yaml(Path(baseline), "baseline"), res.new_sections,
+                           staged.path(plot_path))
+        if out_path is not None:
+            staged.text(out_path, yaml_block.render(
+                res.sections, f"noisecal re-check ({LAYOUT})",
+                {"verdict": "consistent | changed | inconclusive (exit status 0 | 1 | 3)",
+                 "undecided": "Gated parameters this recording could not decide, and what "
+                 "more data each needs."}))
+        staged.commit(record(res) if record else None)
     return res

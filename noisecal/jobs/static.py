@@ -19,7 +19,7 @@ from ..analysis.allan import allan_curve
 from ..analysis.psd import white_level
 from ..errors import AnalysisError, InputError
 from ..export import yaml_block
-from ..export.atomic import output_paths, write_text
+from ..export.atomic import STDOUT, Staged, output_paths
 from ..export.plot import allan_figure
 from ..fit.discrete import filter_block
 from ..fit.gauss_markov import fit_gauss_markov
@@ -391,7 +391,8 @@ def summary(result: StaticResult) -> str:
 def run_static(path: str, out: str, plot: str | None = None, dt: float | None = None,
                channels: list[str] | None = None, repair: str | None = None,
                overwrite: bool = False, reps: int = DEFAULT_REPS, seed: int = DEFAULT_SEED,
-               quiet: bool = False, command: str = "", use_cache: bool = True) -> StaticResult:
+               quiet: bool = False, command: str = "", use_cache: bool = True,
+               record=None) -> StaticResult:
     """Read, characterise and write the YAML block and the plot.
 
     Parameters
@@ -410,12 +411,15 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
         Replace existing outputs.
     use_cache : bool
         Use the binary cache of validated recordings.
+    record : noisecal.jobs.history.Recorder, optional
+        The history the run is stored in, together with its files.
 
     Returns
     -------
     StaticResult
     """
-    out_path, plot_path = output_paths(out, plot, [path], overwrite)
+    out_path, plot_path = output_paths(out, plot, [path], overwrite,
+                                       getattr(record, "paths", ()))
     bars = StageBars(quiet)
     try:
         rec = read_recording(path, repair=repair, use_cache=use_cache, progress=bars)
@@ -425,7 +429,11 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
 
     result = static(rec, channels=channels, dt=dt, reps=reps, seed=seed, progress=not quiet,
                     command=command)
-    allan_figure(result.models, result.dense, result.hadamard, plot_path,
-                 f"{Path(path).name} — overlapping Allan deviation, 95 % intervals, fitted terms")
-    write_text(out_path, result._render(out_path))
+    with Staged(overwrite) as staged:
+        if plot_path is not None:
+            allan_figure(result.models, result.dense, result.hadamard, staged.path(plot_path),
+                         f"{Path(path).name} — overlapping Allan deviation, 95 % intervals, "
+                         "fitted terms")
+        staged.text(out_path, result._render(None if out_path == STDOUT else out_path))
+        staged.commit(record(result) if record else None)
     return result

@@ -16,7 +16,7 @@ from .. import __version__
 from ..analysis import camera_geometry as geo
 from ..errors import InputError
 from ..export import yaml_block
-from ..export.atomic import output_paths, write_text
+from ..export.atomic import STDOUT, Staged, output_paths
 from ..export.camera_plot import camera_figure
 from ..fit.camera import CameraModel, fit_camera
 from ..fit.measurement import GATE_PROBABILITY
@@ -290,11 +290,13 @@ def summary(res: TargetsResult) -> str:
 def run_targets(detections_path: str, survey_path: str, camera_path: str, out: str,
                 plot: str | None = None, ground: str = "ray",
                 gate_probability: float = GATE_PROBABILITY, overwrite: bool = False,
-                seed: int = 1, command: str = "", poses_path: str | None = None
-                ) -> TargetsResult:
-    """Read, analyse and write the camera YAML block and plot."""
+                seed: int = 1, command: str = "", poses_path: str | None = None,
+                record=None) -> TargetsResult:
+    """Read, analyse and write the camera YAML block and plot (and store the run in
+    ``record``, a :class:`noisecal.jobs.history.Recorder`, together with them)."""
     inputs = [detections_path, survey_path, camera_path] + ([poses_path] if poses_path else [])
-    out_path, plot_path = output_paths(out, plot, inputs, overwrite)
+    out_path, plot_path = output_paths(out, plot, inputs, overwrite,
+                                       getattr(record, "paths", ()))
     camera = read_camera(camera_path)
     survey = read_survey(survey_path)
     det = read_detections(detections_path, survey, camera)
@@ -303,6 +305,9 @@ def run_targets(detections_path: str, survey_path: str, camera_path: str, out: s
 
         camera = posed_camera(camera, read_recording(poses_path), det)
     res = analyse(camera, survey, det, ground, gate_probability, seed, command)
-    camera_figure(res, plot_path)
-    write_text(out_path, res._render(out_path))
+    with Staged(overwrite) as staged:
+        if plot_path is not None:
+            camera_figure(res, staged.path(plot_path))
+        staged.text(out_path, res._render(None if out_path == STDOUT else out_path))
+        staged.commit(record(res) if record else None)
     return res
