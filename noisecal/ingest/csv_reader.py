@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import csv
 import io
+import re
 import warnings
 from collections import deque
 from concurrent.futures import ThreadPoolExecutor
@@ -37,68 +38,152 @@ TRIM_EVERY = 4
 """Blocks between two returns of freed parser memory to the system."""
 
 
-def _header_line(path: Path) -> tuple[int, str]:
-    """Index (0-based) and text of the header line, after leading comments."""
+MAX_HEADER_LINE = 1 << 20
+"""Characters of header line beyond which the header is refused rather than split."""
+_EOL = re.compile(rb"\r\n|\r|\n")
+_NUMBER = re.compile(r"[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?\Z")
+_INTEGER = re.compile(r"[+-]?[0-9]+\Z")
+_NOT_FINITE = {"nan", "+nan", "-nan", "inf", "+inf", "-inf", "infinity", "+infinity",
+               "-infinity"}
+INT64 = (-(1 << 63), (1 << 63) - 1)
+
+
+def _raw_lines(fh, offset: int):
+    """Yield ``(start, end, bytes)`` of each line from ``offset``, its end (``\n``,
+    ``\r\n`` or a lone ``\r``) left off; ``end`` is the offset after the line end."""
+    fh.seek(offset)
+    buf, base = b"", offset
+    while True:
+        chunk = fh.read(1 << 20)
+        buf += chunk
+        pos = 0
+        for m in _EOL.finditer(buf):
+            if chunk and m.group() == b"\r" and m.end() == len(buf):
+                break  # a \r\n may be cut between two reads
+            yield base + pos, base + m.end(), buf[pos:m.start()]
+            pos = m.end()
+        buf, base = buf[pos:], base + pos
+        if not chunk:
+            if buf:
+                yield base, base + len(buf), buf
+            return
+
+
+def _decode(path: Path, line_no: int, raw: bytes) -> str:
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"{path}, line {line_no}: byte 0x{raw[exc.start]:02X} (character "
+                         f"{len(raw[:exc.start].decode('utf-8', 'replace')) + 1} of the line) "
+                         "is not UTF-8; save the CSV as UTF-8") from None
+
+
+def _text_lines(path: Path, offset: int):
+    """Yield ``(line number, text)`` of every line after a byte-order mark at ``offset``."""
     with open(path, "rb") as fh:
-        head = fh.read(_SNIFF_BYTES)
-    if not head:
-        raise InputError(f"{path}: the file is empty; record some data or check the path")
+        for line_no, (_, _, raw) in enumerate(_raw_lines(fh, offset), start=1):
+            yield line_no, _decode(path, line_no, raw)
+
+
+def _encoding_problem(path: Path, head: bytes) -> None:
+    """Refuse UTF-16/32 text (by its byte-order mark or its zero bytes) and binary files."""
+    for bom, name in ((b"\xff\xfe\x00\x00", "UTF-32"), (b"\x00\x00\xfe\xff", "UTF-32"),
+                      (b"\xff\xfe", "UTF-16"), (b"\xfe\xff", "UTF-16")):
+        if head.startswith(bom):
+            raise InputError(f"{path}: the file is {name} text; save the CSV as UTF-8 "
+                             "(in a spreadsheet: 'CSV UTF-8')")
     if b"\x00" in head:
+        even, odd = head[0::2], head[1::2]
+        if max(even.count(0), odd.count(0)) > 0.4 * len(head) / 2 and min(
+                even.count(0), odd.count(0)) < 0.05 * len(head) / 2:
+            raise InputError(f"{path}: the file looks like UTF-16 text without a byte-order "
+                             "mark; save the CSV as UTF-8")
         raise InputError(f"{path}: this is a binary file, not CSV text; "
                          "give a CSV, Parquet (.parquet) or NumPy (.npz) recording")
-    try:
-        with open(path, encoding="utf-8", newline="") as fh:
-            for index, line in enumerate(fh):
-                if line.strip() and not line.lstrip().startswith("#"):
-                    return index, line
-    except UnicodeDecodeError:
-        raise InputError(f"{path}: the file is not UTF-8 text; save the CSV as UTF-8") from None
+
+
+def _header_line(path: Path) -> tuple[int, int, int, str]:
+    """Where the text starts (after a UTF-8 byte-order mark), the header line's
+    index (0-based, after leading comments), the offset where the body starts,
+    and the header's text."""
+    with open(path, "rb") as fh:
+        head = fh.read(_SNIFF_BYTES)
+        if not head:
+            raise InputError(f"{path}: the file is empty; record some data or check the path")
+        _encoding_problem(path, head)
+        first = 3 if head.startswith(b"\xef\xbb\xbf") else 0
+        for index, (_, end, raw) in enumerate(_raw_lines(fh, first)):
+            line = _decode(path, index + 1, raw)
+            if line.strip() and not line.lstrip().startswith("#"):
+                return first, index, end, line
     raise InputError(f"{path}: no header line found; the first line must name the "
                      "columns, e.g. 'time [s],gyro_x [deg/s]'")
 
 
-def _scan_for_problem(path: Path, header_index: int, headers: list[str]) -> None:
+def _split_row(path: Path, line_no: int, text: str) -> list:
+    try:
+        return next(csv.reader([text]))
+    except csv.Error as exc:  # a cell over the csv module's length limit, a NUL, …
+        raise InputError(f"{path}, line {line_no}: the line cannot be split into cells "
+                         f"({exc}); fix or remove the line") from None
+
+
+def _cell_problem(text: str, integer: bool) -> str | None:
+    """Why a data cell is not a number as a recording writes it (None if it is)."""
+    if not text:
+        return "empty cell; fill it or remove the row"
+    shown = repr(text[:40])
+    if text.lower() in _NOT_FINITE:
+        return (f"{shown} is not a finite number; remove the row or mark the dropout "
+                "by leaving it out")
+    if not _NUMBER.match(text):
+        if "_" in text and _NUMBER.match(text.replace("_", "")):
+            return (f"{shown} has a digit separator '_'; write the number without it, "
+                    f"e.g. {text.replace('_', '')[:30]}")
+        return f"{shown} is not a number; fix the cell or remove the row"
+    if integer:
+        if not _INTEGER.match(text):
+            return (f"{shown} is not a whole number of nanoseconds; write [ns] times as "
+                    "integers, or the time column in [s]")
+        if not INT64[0] <= int(text) <= INT64[1]:
+            return (f"{shown} is beyond the signed 64-bit range nanoseconds are read in "
+                    "exactly; subtract a fixed offset from the time column (or write it "
+                    "in [s])")
+    return None
+
+
+def _scan_for_problem(path: Path, first: int, header_index: int, headers: list[str],
+                      time_integer: bool = False) -> None:
     """Raise an InputError naming the first bad row or cell; return if none."""
     names = [h.split("[")[0].strip() for h in headers]
     seen = 0
-    with open(path, encoding="utf-8", newline="") as fh:
-        for line_no, line in enumerate(fh, start=1):
-            if line_no <= header_index + 1 or not line.strip():
-                continue
-            seen += 1
-            row = next(csv.reader([line]))
-            if len(row) != len(headers):
-                raise InputError(
-                    f"{path}, line {line_no}: {len(row)} cells where the header has "
-                    f"{len(headers)}; fix or remove the ragged row")
-            for col, cell in enumerate(row):
-                text = cell.strip()
-                where = f"{path}, line {line_no}, column '{names[col]}'"
-                if not text:
-                    raise InputError(f"{where}: empty cell; fill it or remove the row")
-                try:
-                    value = float(text)
-                except ValueError:
-                    raise InputError(f"{where}: {text[:40]!r} is not a number; "
-                                     "fix the cell or remove the row") from None
-                if not np.isfinite(value):
-                    raise InputError(f"{where}: {text[:20]!r} is not a finite number; "
-                                     "remove the row or mark the dropout by leaving it out")
+    for line_no, line in _text_lines(path, first):
+        if line_no <= header_index + 1 or not line.strip():
+            continue
+        seen += 1
+        row = _split_row(path, line_no, line)
+        if len(row) != len(headers):
+            raise InputError(
+                f"{path}, line {line_no}: {len(row)} cells where the header has "
+                f"{len(headers)}; fix or remove the ragged row")
+        for col, cell in enumerate(row):
+            why = _cell_problem(cell.strip(), time_integer and col == 0)
+            if why:
+                raise InputError(f"{path}, line {line_no}, column '{names[col]}': {why}")
     if seen == 0:
         raise InputError(f"{path}: the header is there but no data rows follow; "
                          "record some data")
 
 
-def _line_locator(path: Path, header_index: int):
+def _line_locator(path: Path, first: int, header_index: int):
     def locate(row: int) -> str:
         seen = -1
-        with open(path, encoding="utf-8", newline="") as fh:
-            for line_no, line in enumerate(fh, start=1):
-                if line_no <= header_index + 1 or not line.strip():
-                    continue
-                seen += 1
-                if seen == row:
-                    return f"line {line_no}"
+        for line_no, line in _text_lines(path, first):
+            if line_no <= header_index + 1 or not line.strip():
+                continue
+            seen += 1
+            if seen == row:
+                return f"line {line_no}"
         return f"data row {row + 1}"
     return locate
 
@@ -118,29 +203,35 @@ class CsvSource:
 
     def __init__(self, path: Path):
         self.path = path
-        self.header_index, header_text = _header_line(path)
-        self.headers = [c.strip() for c in next(csv.reader(io.StringIO(header_text)))]
+        self._first, self.header_index, self._body, header_text = _header_line(path)
+        if len(header_text) > MAX_HEADER_LINE:
+            raise InputError(f"{path}, line {self.header_index + 1}: the header line is "
+                             f"{len(header_text):,} characters long; header cells are "
+                             "'name [unit]', e.g. 'gyro_x [deg/s]'")
+        # Unquoted (the usual header) is split by hand: csv refuses cells over 128 KiB,
+        # and a long cell deserves the header's own message.
+        cells = (header_text.split(",") if '"' not in header_text
+                 else _split_row(path, self.header_index + 1, header_text))
+        self.headers = [c.strip() for c in cells]
         if len(self.headers) < 2:
             raise InputError(f"{path}, line {self.header_index + 1}: the header names "
                              f"{len(self.headers)} column(s); a recording needs a time "
                              "column and at least one channel, separated by commas")
-        self.locate = _line_locator(path, self.header_index)
+        self.locate = _line_locator(path, self._first, self.header_index)
+        self._time_integer = False
 
     def problem(self) -> None:
         """Raise the error for the first bad row or cell (called on any parse trouble)."""
-        _scan_for_problem(self.path, self.header_index, self.headers)
+        _scan_for_problem(self.path, self._first, self.header_index, self.headers,
+                          self._time_integer)
 
     def _body_ranges(self):
         """Byte ranges of about ``BLOCK_BYTES`` each, cut at line ends, after the header."""
         size = self.path.stat().st_size
         with open(self.path, "rb") as fh:
-            for _ in range(self.header_index + 1):
-                fh.readline()
-            start = fh.tell()
+            start = self._body
             while start < size:
-                fh.seek(min(start + BLOCK_BYTES, size))
-                fh.readline()
-                end = min(fh.tell(), size)
+                end = _line_end(fh, min(start + BLOCK_BYTES, size), size)
                 yield start, end
                 start = end
 
@@ -171,6 +262,7 @@ class CsvSource:
         error; if the scan finds nothing wrong (text pyarrow is stricter
         about), the rest of the file is read by the pandas path.
         """
+        self._time_integer = time_integer
         rows = 0
         try:
             for time, cols in self._arrow_blocks(time_integer, progress):
@@ -202,10 +294,10 @@ class CsvSource:
         # reader's read-ahead to a few blocks (a native file measured 2.75x the
         # decoded arrays at peak, this 1.5x at most).
         with open(self.path, "rb") as fh:
+            fh.seek(self._body)  # the header never reaches pyarrow: any length, a BOM
             reader = pacsv.open_csv(
                 fh,
-                read_options=pacsv.ReadOptions(skip_rows=self.header_index + 1,
-                                               column_names=names,
+                read_options=pacsv.ReadOptions(column_names=names,
                                                block_size=ARROW_BLOCK_BYTES),
                 parse_options=pacsv.ParseOptions(ignore_empty_lines=True),
                 convert_options=pacsv.ConvertOptions(column_types=types,
@@ -262,10 +354,6 @@ class CsvSource:
             raise
         except Exception:  # pandas' parser errors have no common base worth naming
             self.problem()
-            if time_integer:
-                # Fractional nanoseconds: read the time column as float64 instead.
-                yield from self._float_time_fallback(rows, progress)
-                return
             raise InputError(f"{self.path}: the CSV body could not be parsed; check "
                              "the delimiter (commas) and quoting") from None
         if rows == 0:
@@ -289,11 +377,22 @@ class CsvSource:
         yield arrays[0], arrays[1:]
         return arrays[0].shape[0]
 
-    def _float_time_fallback(self, skip_rows: int, progress):
-        for time, cols in self._pandas_blocks(False, progress):
-            if skip_rows > 0:
-                cut = min(skip_rows, time.shape[0])
-                skip_rows -= cut
-                time, cols = time[cut:], [c[cut:] for c in cols]
-            if time.shape[0]:
-                yield time, cols
+
+def _line_end(fh, pos: int, size: int) -> int:
+    """Offset just after the first line end (``\n``, ``\r\n`` or ``\r``) at or after ``pos``."""
+    fh.seek(pos)
+    while pos < size:
+        chunk = fh.read(1 << 16)
+        if not chunk:
+            break
+        m = re.search(rb"\r\n|\r|\n", chunk)
+        if m is None:
+            pos += len(chunk)
+            continue
+        end = pos + m.end()
+        if m.group() == b"\r" and m.end() == len(chunk):  # a \r\n cut by the read
+            fh.seek(end)
+            if fh.read(1) == b"\n":
+                end += 1
+        return min(end, size)
+    return size

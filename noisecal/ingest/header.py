@@ -39,16 +39,39 @@ class Header:
     time_integer: bool
 
 
+MAX_CELL = 256
+"""Characters a header cell may have; a longer one is not a ``name [unit]`` cell
+(a whole line of data, a pasted document) and is refused, not echoed."""
+
+
+def _shown(cell: str) -> str:
+    return repr(cell) if len(cell) <= 40 else repr(cell[:40]) + "…"
+
+
+def _check_cell(cell: str, where: str) -> None:
+    """Refuse a header cell too long to be one, or with brackets inside its name."""
+    if len(cell) > MAX_CELL:
+        raise InputError(f"{where}: header cell {_shown(cell)} is {len(cell):,} characters "
+                         f"long (at most {MAX_CELL}); write it as 'name [unit]', e.g. "
+                         "'gyro_x [deg/s]'")
+    if cell.count("[") > 1 or cell.count("]") > 1:
+        raise InputError(f"{where}: header cell {_shown(cell)} has '[' or ']' inside the "
+                         "name; only the unit goes in brackets: rename the channel, e.g. "
+                         "'x_0 [m]' for 'x[0] [m]'")
+
+
 def parse_header(cells: list, path: str) -> Header:
     """Check the header cells and work out every conversion.
 
     Raises
     ------
     InputError
-        Missing or unknown unit, time not first or not a time, a repeated name.
+        Missing or unknown unit, time not first or not a time, a repeated name,
+        a cell longer than ``MAX_CELL`` or with brackets in its name.
     """
     names, units = [], []
     for col, cell in enumerate(cells):
+        _check_cell(str(cell), f"{path}, column {col + 1}")
         name, unit = split_header(str(cell), f"{path}, column {col + 1}")
         names.append(name)
         units.append(unit)
