@@ -28,6 +28,40 @@ from .ieee952 import TermFit, basis6
 P_MIN = 0.01
 """Whole-curve p-value below which the model is declared not to follow the curve."""
 
+SPIKE_SIGMAS = 10.0
+"""A sample this many robust σ from its neighbours' median is a spike: Gaussian noise
+gives one beyond 10σ with probability 1.5e-23 per sample."""
+
+
+def spikes(y: np.ndarray, period: float) -> tuple:
+    """Isolated glitches in a static record: (count, time of the first, s).
+
+    A sample that differs from the median of its four neighbours by more than
+    ``SPIKE_SIGMAS`` robust standard deviations of the sample-to-sample
+    differences (MAD × 1.4826/√2; Rousseeuw & Croux 1993) is a spike: a
+    logger glitch or a shock, which the Allan variance would read as white
+    noise (one spike of 5000σ tripled N in a test record).
+
+    Parameters
+    ----------
+    y : ndarray, shape (n,)
+        Samples of one contiguous segment (the first 2^21 are looked at).
+    period : float
+        Sample period, s.
+    """
+    from scipy.ndimage import median_filter
+
+    y = np.asarray(y[: 1 << 21], dtype=np.float64)
+    if y.shape[0] < 8:
+        return (0, None)
+    d = np.diff(y)
+    sigma = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
+    if sigma <= 0:
+        return (0, None)
+    hit = np.flatnonzero(np.abs(y - median_filter(y, size=5, mode="nearest"))
+                         > SPIKE_SIGMAS * sigma)
+    return (int(hit.shape[0]), float(hit[0] * period) if hit.size else None)
+
 
 @dataclass(frozen=True)
 class ModelCheck:
@@ -51,6 +85,8 @@ class ModelCheck:
         Short taus left out of the fit and where they lie against the terms
         without the band-limit correction (``below`` is what a low-pass does;
         ``inside``: left out with its neighbour).
+    spikes : int
+        Isolated glitches found in the samples (see :func:`spikes`).
     cause : str
         The likely cause when not consistent (empty otherwise).
     advice : str
@@ -63,6 +99,7 @@ class ModelCheck:
     points: int
     outside: tuple
     left_out: tuple
+    spikes: int = 0
     cause: str = ""
     advice: str = ""
 
@@ -80,7 +117,7 @@ def _sides(curve: AllanCurve, model: np.ndarray, idx: np.ndarray,
 
 
 def check_model(curve: AllanCurve, fit: TermFit, psd: PsdCheck | None = None,
-                duration: float | None = None) -> ModelCheck:
+                duration: float | None = None, glitches: tuple = (0, None)) -> ModelCheck:
     """Test the fitted terms against the curve they were fitted to.
 
     Parameters
@@ -94,6 +131,9 @@ def check_model(curve: AllanCurve, fit: TermFit, psd: PsdCheck | None = None,
     duration : float, optional
         Record length, s (a misfit at taus beyond a tenth of it reads as a
         slow transient).
+    glitches : (int, float or None)
+        Spikes found in the samples and the time of the first (:func:`spikes`):
+        any makes the check fail, whatever the curve shows.
 
     Returns
     -------
@@ -110,12 +150,19 @@ def check_model(curve: AllanCurve, fit: TermFit, psd: PsdCheck | None = None,
     reps = fit.replicate_deviance
     p = float((1 + np.sum(reps >= fit.deviance)) / (1 + reps.shape[0]))
     excess = [t for t, side in left_out if side == "above"]
-    consistent = p >= P_MIN and not excess
+    count, first = glitches
+    consistent = p >= P_MIN and not excess and count == 0
     if consistent:
         return ModelCheck(True, p, float(fit.deviance), int(idx.shape[0]), outside, left_out)
-    cause, advice = _cause(curve, outside, excess, psd, duration)
+    if count:
+        cause = (f"{count} isolated spike(s) beyond {SPIKE_SIGMAS:g} σ of the sample-to-"
+                 f"sample spread (first at {first:.6g} s): glitches the Allan variance "
+                 "reads as noise")
+        advice = "cut the record around them or record again; white noise is inflated"
+    else:
+        cause, advice = _cause(curve, outside, excess, psd, duration)
     return ModelCheck(False, p, float(fit.deviance), int(idx.shape[0]), outside, left_out,
-                      cause, advice)
+                      count, cause, advice)
 
 
 def _cause(curve, outside, excess, psd, duration) -> tuple[str, str]:

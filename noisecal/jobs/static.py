@@ -24,7 +24,7 @@ from ..export.plot import allan_figure
 from ..fit.discrete import filter_block
 from ..fit.gauss_markov import fit_gauss_markov
 from ..fit.ieee952 import COLUMNS, PENALTY, basis6, fit_terms, term_estimates
-from ..fit.model_check import check_model
+from ..fit.model_check import check_model, spikes
 from ..fit.turn_on import turn_on_bias
 from ..fit.simulate import TERM_NAMES
 from ..ingest import read_recording
@@ -138,9 +138,21 @@ class StaticResult(JobResult):
 
 
 def select_channels(rec: Recording, channels: list[str] | None) -> list[str]:
-    """The channels asked for, checked against the recording."""
+    """The channels asked for, checked against the recording.
+
+    By default every channel but the auxiliary ones (``rec.auxiliary``:
+    temperature, voltage, … which no noise model here describes); an auxiliary
+    channel is fitted only when named.
+    """
     if not channels:
-        return list(rec.channels)
+        chosen = list(rec.analysed_channels)
+        if not chosen:
+            raise InputError(
+                f"{rec.source.path}: every channel is auxiliary ("
+                + ", ".join(f"{c} [{u}]" for c, u in zip(rec.channels, rec.units))
+                + "), none a rate, acceleration, angle, length, field or pressure; name "
+                "one with --channels to fit it anyway")
+        return chosen
     missing = [c for c in channels if c not in rec.channels]
     if missing:
         raise InputError(f"--channels: {', '.join(missing)} not in {rec.source.path}; "
@@ -194,9 +206,15 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
     if not (np.isfinite(step) and step > 0):
         raise ParameterError("dt", dt, "not a positive time step; give seconds, e.g. 0.01")
     for name in names:
-        if np.ptp(rec.channel(name)) == 0:
+        spread = float(np.ptp(rec.channel(name)))
+        if spread == 0:
             raise AnalysisError(f"{rec.source.path}, column {name!r}: the channel is "
                                 "constant; leave it out with --channels")
+        if spread < 1e-100:
+            # Its variances (spread² / τ²) would underflow double precision.
+            raise AnalysisError(f"{rec.source.path}, column {name!r}: values span only "
+                                f"{spread:.3g} {rec.unit_of(name)}; write them in a unit "
+                                "that keeps them near 1 (e.g. urad/s)")
     with progress_bar(total=2 * reps * len(names), desc="bootstrap", quiet=quiet) as bar:
         # Channels on threads: their heavy steps run in kernels that release the GIL.
         shared = SharedBar(bar)
@@ -239,7 +257,8 @@ def _channel(rec: Recording, name: str, reps: int, seed: int, bar):
                           seed + 1000, progress=bar.update)
     model = ChannelModel(channel=name, unit=unit, terms=terms, gauss_markov=gm, curve=curve,
                          coefficients=fit.c2, seed=seed, fit=fit,
-                         check=check_model(curve, fit, psd, rec.duration),
+                         check=check_model(curve, fit, psd, rec.duration,
+                                           spikes(y[a:b], rec.period)),
                          turn_on=turn_on_bias(y, unit, fit.c2, rec.duration))
     return model, dense, hadamard, psd
 
@@ -291,6 +310,7 @@ def _sections(rec, models, psd, block, seed, reps, command) -> dict:
                      "(overlapping points are correlated; the replicates carry it)"),
             "points_fitted": mc.points,
             "points_outside": len(mc.outside),
+            "spikes": mc.spikes,
             "outside": [{"tau_s": yaml_block.num(t), "data": side} for t, side in mc.outside],
             **({"likely_cause": mc.cause, "advice": mc.advice} if not mc.consistent else {}),
         }

@@ -150,3 +150,25 @@ def test_model_check_flags_a_step_the_terms_cannot_make():
     bare_fit = not check.consistent or any(terms[k].resolved for k in
                                            ("bias_random_walk", "rate_ramp", "bias_instability"))
     assert bare_fit, "a step passed as white noise alone"
+
+
+def test_a_glitch_fails_the_model_check():
+    """One 5000σ sample (a logger glitch) in white noise triples the Allan white level;
+    the check names it (a Gaussian sample beyond 10σ has probability 1.5e-23: common
+    practice, no source), and quantized, flicker and random-walk records of the same
+    length raise no spike."""
+    from noisecal.fit.model_check import spikes
+
+    n = 20000
+    rng = np.random.default_rng(0)
+    y = rng.normal(0, 1e-3, n)
+    y[n // 2] += 5.0
+    terms, curve, fit = fitted(y)
+    glitch = spikes(y, PERIOD)
+    assert glitch == (1, pytest.approx(n // 2 * PERIOD))
+    check = check_model(curve, fit, None, n * PERIOD, glitch)
+    assert not check.consistent and check.spikes == 1 and "spike" in check.cause
+    for clean in (np.round(rng.normal(0, 1e-3, n) / 3e-3) * 3e-3,
+                  simulate_rate(np.array([0, 0, 1e-6, 0, 0]), PERIOD, n, rng),
+                  simulate_rate(np.array([0, 0, 0, 1e-6, 0]), PERIOD, n, rng)):
+        assert spikes(clean, PERIOD)[0] == 0
