@@ -109,6 +109,11 @@ class Recording:
         Runs stuck at a channel's extreme.
     source : Source
         Provenance of the file.
+    auxiliary : tuple of str
+        Channels whose dimension the noise fit does not analyse (temperature,
+        voltage, mass, …; see :func:`noisecal.units.analysed`): kept and shown,
+        left out of a fit unless asked for by name. Worked out from ``units``
+        when not given.
     """
 
     time: np.ndarray
@@ -122,6 +127,19 @@ class Recording:
     gaps: tuple[Gap, ...]
     saturated: tuple[SaturatedRun, ...]
     source: Source
+    auxiliary: tuple[str, ...] | None = None
+
+    def __post_init__(self):
+        if self.auxiliary is None:
+            from .units import analysed  # lazy: types stays importable without pint
+
+            aux = tuple(c for c, u in zip(self.channels, self.units) if not analysed(u))
+            object.__setattr__(self, "auxiliary", aux)
+
+    @property
+    def analysed_channels(self) -> tuple[str, ...]:
+        """Channels a noise fit takes by default: all but the auxiliary ones."""
+        return tuple(c for c in self.channels if c not in self.auxiliary)
 
     @property
     def n(self) -> int:

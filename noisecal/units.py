@@ -2,8 +2,15 @@
 
 Sensor headers use a few conventions that differ from pint's defaults:
 ``g`` is standard gravity (9.80665 m/s², 3rd CGPM 1901), not the gram, and
-``mg``/``ug`` are milli-/micro-g; ``dps`` is degrees per second. A unit with
-a mass dimension is therefore never produced by a header.
+``mg``/``ug`` are milli-/micro-g; ``dps`` is degrees per second.
+
+Spellings the trade reads two ways are refused with the spelling to use
+(:data:`AMBIGUOUS`): ``G``/``Gs``/``mG``/``kG`` (gauss, giga-, or a capitalised
+g; pint's gauss is the CGS-Gaussian one, not 10⁻⁴ T), ``dB`` and its kin
+(logarithmic, not a scale factor) and ``px``/``pixel`` in a recording (a unit
+library reads it as 1/96 inch). Channels whose dimension is not one the jobs
+analyse (:func:`analysed`: temperature, voltage, current, mass, …) are kept
+as auxiliary channels.
 """
 
 from __future__ import annotations
@@ -53,6 +60,35 @@ def registry() -> pint.UnitRegistry:
     return ureg
 
 
+_TOKEN = re.compile(r"[A-Za-zµ_Ω]+")
+_GAUSS = ("write a magnetic field in tesla ([T], [uT] or [nT]; 1 gauss = 100 uT) and "
+          "standard gravity as [g]")
+_LOG = ("a logarithmic unit is not a scale factor; convert the column to a linear unit "
+        "(e.g. [W], [V] or [1]) before ingest")
+AMBIGUOUS = {
+    **{t: _GAUSS for t in ("G", "Gs", "mG", "uG", "µG", "kG", "gauss", "Gauss")},
+    **{t: _LOG for t in ("dB", "dBm", "dBW", "dBV", "dBu", "dBFS", "dBi", "dBc", "dBHz",
+                         "decibel", "bel", "Np", "neper")},
+    **{t: "pixels are counts, not lengths (a unit library reads px as 1/96 inch); write "
+          "[1] for a pixel count in a recording" for t in ("px", "pixel", "pixels")},
+}
+"""Unit tokens refused in a recording, with the spelling to use instead."""
+
+
+def check_unambiguous(unit: str, where: str) -> None:
+    """Refuse unit text holding a token of :data:`AMBIGUOUS`, saying what to write.
+
+    Raises
+    ------
+    UnitError
+        One line naming ``where``, the unit as written and the spelling to use.
+    """
+    for token in _TOKEN.findall(unit):
+        hint = AMBIGUOUS.get(token)
+        if hint is not None:
+            raise UnitError(f"{where}: unit [{unit}] is ambiguous ({token!r}); {hint}")
+
+
 def _to_pint_text(unit: str) -> str:
     text = unit.strip().replace("√", "sqrt").replace("°", "deg")
     return _G_TOKEN.sub(lambda mt: _PREFIX[mt.group("prefix")] + "sensor_gravity", text)
@@ -86,6 +122,7 @@ def split_header(cell: str, where: str) -> tuple[str, str]:
 
 def parse_unit(unit: str, where: str) -> pint.Unit:
     """Parse unit text into a pint unit, with the sensor conventions applied."""
+    check_unambiguous(unit, where)
     ureg = registry()
     try:
         parsed = ureg.parse_units(_to_pint_text(unit))
@@ -115,12 +152,62 @@ def to_si(values: np.ndarray, unit: str, where: str) -> tuple[np.ndarray, str]:
         The SI unit, pint-parsable (``"1"`` for dimensionless).
     """
     common = COMMON.get(unit.strip())
-    if common is not None:
-        return np.asarray(values, dtype=np.float64) * common[0], common[1]
-    parsed = parse_unit(unit, where)
-    q = registry().Quantity(np.asarray(values, dtype=np.float64), parsed).to_base_units()
-    text = f"{q.units:~C}" or "1"
-    return np.asarray(q.magnitude, dtype=np.float64), text
+    # Overflow to inf is the caller's to report, with the row; no warning here.
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        if common is not None:
+            return np.asarray(values, dtype=np.float64) * common[0], common[1]
+        parsed = parse_unit(unit, where)
+        try:
+            q = registry().Quantity(np.asarray(values, dtype=np.float64),
+                                    parsed).to_base_units()
+        except Exception:  # pint: logarithmic or otherwise unconvertible units
+            raise UnitError(f"{where}: unit [{unit}] cannot be converted to SI; use a "
+                            "linear unit such as deg/s, m/s^2 or 1") from None
+        text = f"{q.units:~C}" or "1"
+        return np.asarray(q.magnitude, dtype=np.float64), text
+
+
+_ANALYSED_SI = {"1": True, "rad": True, "rad/s": True, "s": True, "m": True, "m/s": True,
+                "m/s**2": True, "1/s": True, "K": False}
+"""Common SI unit texts, classified without pint."""
+
+ANALYSED_DIMENSIONS = (
+    {}, {"[time]": -1}, {"[time]": -2}, {"[time]": 1},
+    {"[length]": 1}, {"[length]": 1, "[time]": -1}, {"[length]": 1, "[time]": -2},
+    {"[length]": 1, "[time]": -3},
+    {"[mass]": 1, "[current]": -1, "[time]": -2},   # magnetic flux density (T)
+    {"[mass]": 1, "[length]": -1, "[time]": -2},    # pressure (Pa), barometers
+)
+"""Dimensions the jobs fit noise models to: counts and angles, angular rate and
+acceleration, time (clock offsets), length, speed, acceleration and jerk,
+magnetic flux density and pressure. Anything else (temperature, voltage,
+current, mass, …) is an auxiliary channel: kept, shown, not fitted by default."""
+
+
+@lru_cache(maxsize=256)
+def analysed(si_unit: str) -> bool:
+    """Whether a channel of SI unit ``si_unit`` is one the noise fit analyses.
+
+    Parameters
+    ----------
+    si_unit : str
+        An SI unit text as :func:`to_si` returns it (e.g. ``"rad/s"``, ``"K"``).
+
+    Returns
+    -------
+    bool
+        False for dimensions outside :data:`ANALYSED_DIMENSIONS`, and for text
+        that does not parse (nothing is fitted on a guess).
+    """
+    known = _ANALYSED_SI.get(si_unit)
+    if known is not None:
+        return known
+    try:
+        dims = dict(registry().parse_units(_to_pint_text(si_unit)).dimensionality)
+    except Exception:  # not parsable: treat as auxiliary rather than guess
+        return False
+    dims = {k: v for k, v in dims.items() if v}
+    return any(dims == d for d in ANALYSED_DIMENSIONS)
 
 
 def time_scale(unit: str, where: str) -> float:
@@ -133,7 +220,11 @@ def time_scale(unit: str, where: str) -> float:
     if q.dimensionality != registry().Quantity(1.0, "s").dimensionality:
         raise UnitError(f"{where}: the time column's unit {unit!r} is not a time; "
                         "use [s] or [ns]")
-    return float(q.to("s").magnitude)
+    scale = float(q.to("s").magnitude)
+    if not (np.isfinite(scale) and scale > 0):
+        raise UnitError(f"{where}: the time column's unit {unit!r} is not a usable time "
+                        "scale; use [s] or [ns]")
+    return scale
 
 
 def derived_unit(si_unit: str, kind: str) -> str:

@@ -71,3 +71,52 @@ def test_common_units_agree_with_pint(unit):
     q = units.registry().Quantity(1.0, units.parse_unit(unit, "t")).to_base_units()
     assert si == (f"{q.units:~C}" or "1")
     assert scale == pytest.approx(q.magnitude, rel=1e-14)
+
+
+@pytest.mark.parametrize("unit, expect", [
+    ("G", "tesla"), ("Gs", "tesla"), ("mG", "tesla"), ("gauss", "tesla"), ("G/s", "tesla"),
+    ("dB", "logarithmic"), ("dBm", "logarithmic"), ("px", "pixel count"),
+    ("pixel", "pixel count"), ("px/s", "pixel count"),
+])
+def test_ambiguous_units_are_refused_with_the_spelling_to_use(unit, expect):
+    """pint reads G as the CGS-Gaussian gauss, Gs as gigaseconds, dB as a factor of
+    10^0.1 and px as 1/96 inch (checked with pint here); the trade means gauss,
+    g, a level and a count. Each is refused, saying what to write."""
+    ureg = pint.UnitRegistry()
+    assert str(ureg.parse_units("Gs")) == "gigasecond"
+    assert ureg.Quantity(1, "px").to("inch").magnitude == pytest.approx(1 / 96)
+    with pytest.raises(UnitError, match=expect) as err:
+        to_si(np.array([1.0]), unit, "f.csv, column 'x'")
+    assert str(err.value).startswith("f.csv, column 'x': unit [") and "\n" not in str(err.value)
+    with pytest.raises(UnitError):
+        time_scale(unit, "t")
+
+
+@pytest.mark.parametrize("unit", ["g", "mg", "ug", "m/s^2", "deg/s", "uT", "nT", "hPa", "kg"])
+def test_near_misses_stay_accepted(unit):
+    """Lower-case g is gravity (3rd CGPM); tesla, pascal and kilogram are plain SI."""
+    to_si(np.array([1.0]), unit, "t")
+
+
+@pytest.mark.parametrize("unit, fitted", [
+    ("deg/s", True), ("rad", True), ("g", True), ("m", True), ("m/s", True), ("1", True),
+    ("rad/s^2", True), ("ns", True), ("uT", True), ("hPa", True), ("m/s^3", True),
+    ("degC", False), ("K", False), ("V", False), ("mA", False), ("kg", False), ("W", False),
+    ("J", False), ("degF", False),
+])
+def test_analysed_dimensions(unit, fitted):
+    """Which SI dimensions the noise fit takes (pint's dimensionality of the unit)."""
+    from noisecal.units import analysed
+
+    _, si = to_si(np.array([1.0]), unit, "t")
+    assert analysed(si) is fitted
+
+
+def test_conversion_overflow_gives_inf_without_warning():
+    """Overflow is reported by ingest with the row; to_si itself stays quiet."""
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        values, _ = to_si(np.array([1e306]), "km", "t")
+    assert np.isinf(values[0])

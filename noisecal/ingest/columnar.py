@@ -1,7 +1,9 @@
 """Parquet and NumPy ``.npz`` recordings.
 
 Both name their columns (Parquet) or arrays (npz) with the same
-``name [unit]`` cells as a CSV header; the time column comes first.
+``name [unit]`` cells as a CSV header; the time column comes first. Columns are
+handed out as stored (any integer or float width); ``validate.exact_time``
+widens integer times to int64 before any difference is taken.
 """
 
 from __future__ import annotations
@@ -23,9 +25,9 @@ def _numeric(path: Path, name: str, array: np.ndarray) -> np.ndarray:
     if array.ndim != 1:
         raise InputError(f"{path}: column {name!r} has shape {array.shape}; "
                          "store each channel as a 1-D array")
-    if not (np.issubdtype(array.dtype, np.number) or array.dtype == bool):
-        raise InputError(f"{path}: column {name!r} is of type {array.dtype}, not numeric; "
-                         "store numbers")
+    if array.dtype.kind not in "biuf":  # complex, text, dates, records, objects
+        raise InputError(f"{path}: column {name!r} is of type {array.dtype}, not real "
+                         "numbers; store integers or floating-point numbers")
     return array
 
 

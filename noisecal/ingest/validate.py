@@ -21,6 +21,18 @@ GAP_FACTOR = 1.5
 SATURATION_MIN_RUN = 5
 """Consecutive samples at a channel's extreme that count as clipping."""
 
+SI_LIMIT = 1e100
+"""Largest magnitude of a value in SI accepted; beyond it squares and sums in the
+analysis lose range (common practice, no source)."""
+
+SI_FLOOR = 1e-100
+"""A channel whose largest magnitude in SI is non-zero but below this is refused:
+its variances would underflow to zero (common practice, no source)."""
+
+MIN_STEP_S = 1e-12
+"""Shortest timestamp step accepted once in seconds (1 ps): shorter steps are
+rounding, not sampling, and would make the rate infinite."""
+
 REPAIRS = ("sort", "drop")
 SUMMARY_BLOCK = 1 << 18
 PERIOD_SAMPLE = 1 << 18
@@ -61,12 +73,15 @@ def stream(source, header: Header, sink, repair: str | None = None, progress=Non
     rows = 0
     t0 = None
     last = None
+    rel_last = None
+    peak = np.zeros(len(header.names))
     for time, cols in source.blocks(header.time_integer, progress):
         if time.shape[0] == 0:
             continue
         if len(cols) != len(header.names):
             raise InputError(f"{path}: {len(cols) + 1} columns where the header has "
                              f"{len(header.names) + 1}")
+        time = exact_time(source, time, rows)
         if time.dtype.kind == "f" and not np.isfinite(time).all():
             row = rows + int(np.flatnonzero(~np.isfinite(time))[0])
             raise InputError(f"{path}, {source.locate(row)}, column 'time': not a finite "
@@ -87,12 +102,91 @@ def stream(source, header: Header, sink, repair: str | None = None, progress=Non
             _order_error(source, rows + first + (1 if last is None else 0), steps[first], bad.size)
         last = time[-1]
         # Relative time before scaling keeps integer nanoseconds exact.
-        rel = (time - t0).astype(np.float64) * header.time_scale
-        si = [c * s + o if o else c * s
-              for c, s, o in zip(cols, header.scale, header.offset)]
+        with np.errstate(over="ignore", invalid="ignore"):
+            rel = (time - t0).astype(np.float64) * header.time_scale
+        _check_seconds(source, rel, rel_last, rows, repair)
+        rel_last = rel[-1]
+        with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+            si = [c * s + o if o else c * s
+                  for c, s, o in zip(cols, header.scale, header.offset)]
+        for i, (name, col, unit) in enumerate(zip(header.names, si, header.source_units)):
+            peak[i] = max(peak[i], _check_si(source, name, unit, col, rows))
         sink.append(rel, si)
         rows += time.shape[0]
+    for name, unit, top in zip(header.names, header.source_units, peak):
+        if 0 < top < SI_FLOOR:
+            raise InputError(f"{path}, column {name!r}: every value is below {SI_FLOOR:g} "
+                             f"in SI (largest {top:.3g}); check the unit [{unit}] or rescale "
+                             "the column")
     return float(t0) * header.time_scale
+
+
+def exact_time(source, time: np.ndarray, rows: int) -> np.ndarray:
+    """A block's time column in a type whose differences are exact.
+
+    Integers of any width are widened to int64 before any difference is taken
+    (int16/int32 steps would wrap); unsigned values beyond int64 and boolean
+    columns are refused; floats narrower than float64 are widened.
+
+    Parameters
+    ----------
+    source
+        The source (``path``, ``locate``), for messages.
+    time : ndarray, shape (m,)
+        The block's time column as read.
+    rows : int
+        Rows before this block.
+
+    Returns
+    -------
+    ndarray, shape (m,)
+        int64 or float64.
+    """
+    kind = time.dtype.kind
+    if kind == "b" or kind not in "iuf":
+        raise InputError(f"{source.path}, column 'time': values of type {time.dtype}; store "
+                         "the time as integers or floating-point numbers")
+    if kind == "u" and time.dtype.itemsize == 8:
+        over = np.flatnonzero(time > np.iinfo(np.int64).max)
+        if over.size:
+            raise InputError(f"{source.path}, {source.locate(rows + int(over[0]))}, column "
+                             f"'time': {time[over[0]]} is beyond the signed 64-bit range; "
+                             "store times relative to an epoch that fits")
+    if kind in "iu":
+        return time.astype(np.int64, copy=False)
+    return time.astype(np.float64, copy=False)
+
+
+def _check_seconds(source, rel, rel_last, rows, repair) -> None:
+    """Refuse times that overflow, or stop increasing, once converted to seconds."""
+    bad = np.flatnonzero(~np.isfinite(rel))
+    if bad.size:
+        raise InputError(f"{source.path}, {source.locate(rows + int(bad[0]))}, column 'time': "
+                         "overflows once converted to seconds; check the time unit")
+    if repair is not None:
+        return
+    steps = np.diff(rel) if rel_last is None else np.diff(np.concatenate([[rel_last], rel]))
+    bad = np.flatnonzero(~(steps >= MIN_STEP_S))
+    if bad.size:
+        row = rows + int(bad[0]) + (1 if rel_last is None else 0)
+        raise InputError(f"{source.path}, {source.locate(row)}, column 'time': "
+                         f"{steps[bad[0]]:.3g} s after the previous timestamp once converted "
+                         f"to seconds (under {MIN_STEP_S:g} s, or a span beyond 64 bits); "
+                         "check the time unit")
+
+
+def _check_si(source, name, unit, col, rows) -> float:
+    """Refuse SI values that overflowed or passed :data:`SI_LIMIT`; the block's peak."""
+    if col.shape[0] == 0:
+        return 0.0
+    with np.errstate(invalid="ignore"):
+        bad = np.flatnonzero(~(np.abs(col) <= SI_LIMIT))
+    if bad.size:
+        raise InputError(f"{source.path}, {source.locate(rows + int(bad[0]))}, column "
+                         f"{name!r}: {col[bad[0]]:.6g} in SI is beyond {SI_LIMIT:g} (or "
+                         f"overflows) after conversion from [{unit}]; check the value and "
+                         "the unit")
+    return float(np.max(np.abs(col)))
 
 
 def apply_repair(time: np.ndarray, cols: list, repair: str):

@@ -48,7 +48,12 @@ def describe(rec: Recording) -> str:
     ]
     for name, src, si in zip(rec.channels, rec.source_units, rec.units):
         y = rec.channel(name)
-        lines.append(f"    {name:<16} [{src}] -> [{si}]  mean {y.mean():.6g}  std {y.std():.6g}")
+        aux = "  (auxiliary)" if name in rec.auxiliary else ""
+        lines.append(f"    {name:<16} [{src}] -> [{si}]  mean {y.mean():.6g}  "
+                     f"std {y.std():.6g}{aux}")
+    if rec.auxiliary:
+        lines.append(f"  auxiliary {', '.join(rec.auxiliary)}: kept, not a quantity the noise "
+                     "fit analyses; left out of the static fit unless named with --channels")
     for g in rec.gaps:
         lines.append(f"  gap at {g.start_s:.6g} s, {g.length_s:.6g} s long ({g.missing} samples)")
     found = problems(rec)

@@ -228,3 +228,123 @@ def test_detections_hash_is_of_the_file(tmp_path):
 
 def test_errors_are_project_errors():
     assert issubclass(InputError, NoisecalError)
+
+
+# --- time columns, SI range, auxiliary channels (Parquet and npz) -----------------------
+
+N = 2000
+
+
+def _write(tmp_path, name, arrays, parquet=False):
+    if parquet:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+
+        path = tmp_path / f"{name}.parquet"
+        pq.write_table(pa.table({k: pa.array(v) for k, v in arrays.items()}), path)
+    else:
+        path = tmp_path / f"{name}.npz"
+        np.savez(path, **arrays)
+    return path
+
+
+def _read(path):
+    from noisecal.ingest import read_recording
+
+    return read_recording(path, use_cache=False)
+
+
+@pytest.mark.parametrize("parquet", [False, True])
+@pytest.mark.parametrize("dtype", [np.int16, np.int32, np.uint16, np.uint32, np.int64,
+                                   np.uint64])
+def test_integer_time_columns_are_exact(tmp_path, dtype, parquet):
+    """50 Hz in ms stored in narrow integers spanning more than the type's half range:
+    differences taken in the stored type would wrap (int16: a 40 s record read as
+    -25.5 s). Expected values are arithmetic: 2000 samples × 20 ms."""
+    info = np.iinfo(dtype)
+    start = max(int(info.min), -20000)
+    time = (start + 20 * np.arange(N)).astype(dtype)
+    y = np.random.default_rng(1).normal(size=N)
+    rec = _read(_write(tmp_path, "t", {"time [ms]": time, "gyro [deg/s]": y}, parquet))
+    assert rec.duration == pytest.approx(40.0, rel=1e-12)
+    assert rec.period == pytest.approx(0.02, rel=1e-12)
+    assert rec.jitter < 1e-12 and not rec.gaps
+    assert rec.start_time == pytest.approx(start * 1e-3)
+
+
+def test_uint64_time_beyond_int64_is_refused(tmp_path):
+    time = np.arange(N, dtype=np.uint64) + np.uint64(2 ** 63)
+    path = _write(tmp_path, "t", {"time [ns]": time, "x [1]": np.zeros(N)})
+    with pytest.raises(InputError, match=r"data row 1, column 'time'.*64-bit") as err:
+        _read(path)
+    _one_line(err.value)
+
+
+@pytest.mark.parametrize("time, match", [
+    (np.array([-2 ** 63 + 1, 0, 2 ** 63 - 1]), "data row 3, column 'time'"),
+    (np.arange(N) * 1e-310, "data row 2, column 'time'"),
+    (np.arange(N) % 2 == 0, "type bool"),
+])
+def test_times_unusable_in_seconds_are_refused(tmp_path, time, match):
+    path = _write(tmp_path, "t", {"time [ns]": time, "x [1]": np.ones(time.shape[0])})
+    with pytest.raises(InputError, match=match) as err:
+        _read(path)
+    _one_line(err.value)
+
+
+@pytest.mark.parametrize("unit, scale, match", [
+    ("km/s", 1e306, r"data row 1, column 'x'.*overflows"),
+    ("rad/s", 1e150, r"data row 1, column 'x'.*beyond 1e\+100"),
+    ("rad/s", 1e-200, r"column 'x': every value is below 1e-100"),
+])
+def test_values_out_of_range_in_si_are_refused(tmp_path, unit, scale, match):
+    y = np.random.default_rng(2).normal(size=N) * scale
+    path = _write(tmp_path, "t", {"time [s]": np.arange(N) * 0.01, f"x [{unit}]": y})
+    with pytest.raises(InputError, match=match) as err:
+        _read(path)
+    _one_line(err.value)
+
+
+def test_zero_channel_is_not_underflow(tmp_path):
+    path = _write(tmp_path, "t", {"time [s]": np.arange(N) * 0.01, "x [rad/s]": np.zeros(N),
+                                  "y [rad/s]": np.full(N, 1e-90)})
+    assert _read(path).n == N
+
+
+def test_complex_npz_column_is_refused(tmp_path):
+    path = _write(tmp_path, "t", {"time [s]": np.arange(N) * 0.01, "x [1]": np.ones(N) + 1j})
+    with pytest.raises(InputError, match="complex128, not real numbers"):
+        _read(path)
+
+
+def test_ambiguous_unit_in_a_recording(tmp_path):
+    path = _write(tmp_path, "t", {"time [s]": np.arange(N) * 0.01, "mag [G]": np.ones(N)})
+    with pytest.raises(InputError, match=r"column 'mag'.*\[G\] is ambiguous.*tesla"):
+        _read(path)
+
+
+def test_auxiliary_channels_are_kept_shown_and_not_fitted_by_default(tmp_path):
+    from noisecal.jobs.inspect import describe
+    from noisecal.jobs.static import select_channels
+
+    y = np.random.default_rng(3).normal(size=N)
+    path = _write(tmp_path, "t", {"time [s]": np.arange(N) * 0.01, "gyro [deg/s]": y,
+                                  "temp [degC]": 20 + y, "supply [V]": 5 + y,
+                                  "mass [kg]": y})
+    rec = _read(path)
+    assert rec.channels == ("gyro", "temp", "supply", "mass")
+    assert rec.auxiliary == ("temp", "supply", "mass")
+    assert rec.channel("temp").mean() == pytest.approx(293.15 + y.mean())  # kelvin, pint
+    assert select_channels(rec, None) == ["gyro"]
+    assert select_channels(rec, ["temp"]) == ["temp"]
+    text = describe(rec)
+    assert "temp" in text and "auxiliary temp, supply, mass" in text
+
+
+def test_only_auxiliary_channels_is_a_one_line_error(tmp_path):
+    from noisecal.jobs.static import select_channels
+
+    path = _write(tmp_path, "t", {"time [s]": np.arange(N) * 0.01, "temp [degC]": np.ones(N)})
+    with pytest.raises(InputError, match="every channel is auxiliary") as err:
+        select_channels(_read(path), None)
+    _one_line(err.value)
