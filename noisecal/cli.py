@@ -22,7 +22,8 @@ class _Parser(argparse.ArgumentParser):
     """argparse with one-line errors (what, and where to look), status 2."""
 
     def error(self, message: str):
-        self.exit(EXIT_ERROR, f"{self.prog}: error: {message}; see '{self.prog} --help'\n")
+        self.exit(EXIT_ERROR, f"{self.prog}: error: {printable(message)}; see "
+                  f"'{self.prog} --help'\n")
 
 
 def _ranged(kind, low=None, high=None, low_open=False, high_open=False, example=""):
@@ -217,6 +218,11 @@ def _say(text: str, to_stderr: bool = False) -> None:
           file=sys.stderr if to_stderr else sys.stdout)
 
 
+def _error(message: str) -> None:
+    """The one line of an error on stderr (a newline in a name shown as \\n)."""
+    print(f"noisecal: error: {printable(message)}", file=sys.stderr)
+
+
 def _recorder(args, job: str):
     """The history the run is stored in (opened and validated now, before any work)."""
     if not getattr(args, "unit", None):
@@ -247,10 +253,10 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return _run(args, command, lambda job: _recorder(args, job))
     except ParameterError as exc:
-        _say(f"noisecal: error: {exc.as_option()}", True)
+        _error(exc.as_option())
         return EXIT_ERROR
     except NoisecalError as exc:
-        _say(f"noisecal: error: {exc}", True)
+        _error(str(exc))
         return EXIT_ERROR
     except KeyboardInterrupt as exc:
         remove_leftovers()
@@ -365,9 +371,10 @@ _JOBS = ("static", "motion", "targets")
 def _done(say, args, record) -> None:
     """The closing lines: what was written and where the run was stored."""
     if args.output and args.output != STDOUT:
-        say(f"wrote {args.output}")
+        say(f"wrote {printable(args.output)}")
     if record is not None and record.run_id is not None:
-        say(f"stored as run {record.run_id} of unit {args.unit} in {args.db}")
+        say(f"stored as run {record.run_id} of unit {printable(args.unit)} in "
+            f"{printable(args.db)}")
 
 
 def _history(args, say) -> int:
@@ -389,10 +396,10 @@ def _history(args, say) -> int:
     if args.export:
         rows = hist.export_csv(args.db, args.unit, args.output, args.param, args.since,
                                args.overwrite)
-        say(f"wrote {rows} row(s) to {args.output}")
+        say(f"wrote {rows} row(s) to {printable(args.output)}")
     if args.plot:
         hist.plot(args.db, args.unit, args.plot, args.param, args.since, args.overwrite)
-        say(f"wrote {args.plot}")
+        say(f"wrote {printable(args.plot)}")
     return 0
 
 
