@@ -74,6 +74,11 @@ class Camera:
 
 def _number(data, key, where, positive=False):
     value = data.get(key) if isinstance(data, dict) else None
+    if isinstance(value, int) and not isinstance(value, bool):
+        try:
+            value = float(value)  # an integer beyond float range overflows here
+        except OverflowError:
+            value = float("inf")
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not np.isfinite(value):
         raise InputError(f"{where}: '{key}' must be a number")
     if positive and value <= 0:
@@ -93,10 +98,12 @@ def _matrix(value, shape, where, what):
 
 def check_rotation(R: np.ndarray, where: str) -> None:
     """Refuse a matrix that is not a rotation (orthonormal, determinant +1)."""
-    err = float(np.abs(R.T @ R - np.eye(3)).max())
-    if err > 1e-6 or np.linalg.det(R) < 0:
+    with np.errstate(over="ignore", invalid="ignore"):  # huge entries: refused below
+        err = float(np.abs(R.T @ R - np.eye(3)).max())
+        det = float(np.linalg.det(R))
+    if not err <= 1e-6 or not det > 0:
         raise InputError(f"{where}: the rotation is not a rotation (|RᵀR − I| = {err:.2g}, "
-                         f"det = {np.linalg.det(R):.3g}); give an orthonormal matrix with "
+                         f"det = {det:.3g}); give an orthonormal matrix with "
                          "determinant +1, columns = camera axes in the world")
 
 

@@ -176,10 +176,15 @@ class OdometryConfig:
 
 def _positive(data, key, where):
     value = data.get(key)
-    if not isinstance(value, (int, float)) or isinstance(value, bool) or \
-            not np.isfinite(value) or value <= 0:
+    if not isinstance(value, (int, float)) or isinstance(value, bool):
         raise InputError(f"{where}: '{key}' must be a positive number")
-    return float(value)
+    try:
+        value = float(value)  # an integer beyond float range overflows here
+    except OverflowError:
+        value = float("inf")
+    if not np.isfinite(value) or value <= 0:
+        raise InputError(f"{where}: '{key}' must be a positive finite number")
+    return value
 
 
 def read_odometry_config(path: str | Path) -> OdometryConfig:
