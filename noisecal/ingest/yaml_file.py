@@ -206,6 +206,29 @@ GuardedLoader.add_constructor("tag:yaml.org,2002:int", GuardedLoader.construct_y
 GuardedLoader.add_constructor("tag:yaml.org,2002:float", GuardedLoader.construct_yaml_float)
 
 
+def quote_for_loader(dumper: type) -> type:
+    """Make a SafeDumper subclass quote text :class:`GuardedLoader` would read as a number.
+
+    A dumper quotes a string only when its own (YAML 1.1) resolvers would read it
+    as something else, so ``"1e3"``, ``"inf"`` or ``"0o17"`` are written plain and
+    read back by :class:`GuardedLoader` as numbers. Adding the loader's resolvers to
+    the dumper's makes it quote text either reading would take for a number or a
+    boolean, so what it writes reads back the same with ``yaml.safe_load`` and with
+    :func:`read_yaml`.
+
+    Parameters
+    ----------
+    dumper : type
+        A ``yaml.SafeDumper`` subclass; changed in place and returned.
+    """
+    for first, resolvers in GuardedLoader.yaml_implicit_resolvers.items():
+        for tag, regexp in resolvers:
+            if tag in ("tag:yaml.org,2002:int", "tag:yaml.org,2002:float",
+                       "tag:yaml.org,2002:bool"):
+                dumper.add_implicit_resolver(tag, regexp, [first])
+    return dumper
+
+
 def _check_expansion(root) -> None:
     """Refuse a node graph whose full expansion passes MAX_NODES, or that loops."""
     sizes: dict = {}

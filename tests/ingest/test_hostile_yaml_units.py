@@ -348,3 +348,24 @@ def test_only_auxiliary_channels_is_a_one_line_error(tmp_path):
     with pytest.raises(InputError, match="every channel is auxiliary") as err:
         select_channels(_read(path), None)
     _one_line(err.value)
+
+
+def test_quote_for_loader_makes_dumped_text_read_back_as_text():
+    """A SafeDumper leaves '1e3' unquoted (a string under YAML 1.1) and the guarded
+    loader would read it as 1000.0; with quote_for_loader both readings agree."""
+    import yaml
+
+    class Plain(yaml.SafeDumper):
+        pass
+
+    class Quoting(yaml.SafeDumper):
+        pass
+
+    yaml_file.quote_for_loader(Quoting)
+    doc = {"channels": ["1e3", "inf", "0o17", "1_0", ".5", "on", "yes", "gyro", "1:30"],
+           "n": 3, "x": 1e-6, "y": float("inf"), "b": True, "none": None}
+    plain = yaml.dump(doc, Dumper=Plain)
+    assert parse_yaml(plain, "b.yaml", "baseline")["channels"][0] == 1000.0  # the hazard
+    text = yaml.dump(doc, Dumper=Quoting)
+    assert parse_yaml(text, "b.yaml", "baseline") == doc
+    assert yaml.safe_load(text) == doc
