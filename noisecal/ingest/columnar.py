@@ -8,6 +8,8 @@ widens integer times to int64 before any difference is taken.
 
 from __future__ import annotations
 
+import math
+import os
 from pathlib import Path
 
 import numpy as np
@@ -82,6 +84,37 @@ class ParquetSource:
             raise InputError(f"{self.path}: no data rows; record some data")
 
 
+def _memory_bytes() -> int | None:
+    """Physical memory of the machine, bytes (None where unknown)."""
+    try:
+        return int(os.sysconf("SC_PHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
+    except (AttributeError, ValueError, OSError):
+        return None
+
+
+def _declared_bytes(path: Path) -> int:
+    """Bytes the arrays of an npz archive declare, read from the headers only.
+
+    A compressed member can declare far more than its size on disk (a "zip
+    bomb"); reading it whole would fill the memory before any check ran.
+    """
+    import zipfile
+
+    total = 0
+    with zipfile.ZipFile(path) as archive:
+        for info in archive.infolist():
+            if not info.filename.endswith(".npy"):
+                continue
+            with archive.open(info) as fh:
+                version = np.lib.format.read_magic(fh)
+                if version == (1, 0):
+                    shape, _, dtype = np.lib.format.read_array_header_1_0(fh)
+                else:
+                    shape, _, dtype = np.lib.format.read_array_header_2_0(fh)
+            total += math.prod(int(d) for d in shape) * dtype.itemsize
+    return total
+
+
 class NpzSource:
     """A NumPy ``.npz`` recording (arrays keyed by header cells), read whole."""
 
@@ -90,6 +123,15 @@ class NpzSource:
 
     def __init__(self, path: Path):
         self.path = path
+        try:
+            declared = _declared_bytes(path)
+        except Exception:  # zipfile, numpy header errors: reported as unreadable below
+            declared = 0
+        memory = _memory_bytes()
+        if memory is not None and declared > memory // 2:
+            raise InputError(f"{path}: its arrays declare {declared / 1e9:.3g} GB, more than "
+                             f"half of this machine's {memory / 1e9:.3g} GB memory; store a "
+                             "large recording as Parquet, which is read in blocks")
         try:
             with np.load(path, allow_pickle=False) as archive:
                 names = list(archive.files)

@@ -369,3 +369,27 @@ def test_quote_for_loader_makes_dumped_text_read_back_as_text():
     text = yaml.dump(doc, Dumper=Quoting)
     assert parse_yaml(text, "b.yaml", "baseline") == doc
     assert yaml.safe_load(text) == doc
+
+
+def test_npz_declaring_more_than_memory_is_refused_before_reading(tmp_path, monkeypatch):
+    """A compressed npz whose headers declare 800 GB in a few kB (a zip bomb) is
+    refused from its headers (numpy .npy format 1.0), before any array is read."""
+    import io
+    import zipfile
+
+    from noisecal.ingest import columnar
+
+    path = tmp_path / "bomb.npz"
+    with zipfile.ZipFile(path, "w", zipfile.ZIP_DEFLATED) as archive:
+        for name in ["time [s].npy", "x [1].npy"]:
+            with archive.open(name, "w", force_zip64=True) as fh:
+                head = io.BytesIO()
+                np.lib.format.write_array_header_1_0(
+                    head, {"descr": "<f8", "fortran_order": False, "shape": (10 ** 11,)})
+                fh.write(head.getvalue())
+                fh.write(b"\0" * 4096)
+    assert path.stat().st_size < 100_000
+    monkeypatch.setattr(columnar, "_memory_bytes", lambda: 8 << 30)
+    with pytest.raises(InputError, match="declare 1.6e\\+03 GB, more than half") as err:
+        _read(path)
+    _one_line(err.value)
