@@ -109,7 +109,7 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
     cached = root is not None
     known = cache.known_hash(root, state)
     if known is not None:
-        hit = cache.load(root, known, expect_probe=cache.probe(path))
+        hit = cache.load(root, known, expect_probe=_probe(path))
         if hit is not None and _state(path) == state:
             return _recording(path, *hit)  # the header was checked when the entry was made
         cache.forget(root, state)
@@ -160,6 +160,14 @@ def _clean_once(folder: Path, prefix: str | None = None) -> None:
 def _state(path: Path) -> tuple:
     try:
         return cache.file_state(path)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot be read ({exc.strerror}); check the path "
+                         "and permissions") from None
+
+
+def _probe(path: Path) -> str:
+    try:
+        return cache.probe(path)
     except OSError as exc:
         raise InputError(f"{path}: cannot be read ({exc.strerror}); check the path "
                          "and permissions") from None
@@ -219,7 +227,7 @@ def _read_cached(path, source, header, state, root, hasher, tick) -> Recording:
         start = stream(source, header, sink, None, tick)
         time, cols = sink.finish()
         digest = hasher.result()
-        fingerprint = cache.probe(path)
+        fingerprint = _probe(path)
         _unchanged(path, state)
         release_free_memory()
         ours = False

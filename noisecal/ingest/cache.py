@@ -164,7 +164,7 @@ def _write_json(path: Path, data) -> None:
 
 def clean(root: Path) -> int:
     """Remove partial entries and temporary files of interrupted runs; return how many."""
-    return clean_stale(root, BUILDING) + clean_stale(root, ".tmp-")
+    return sum(clean_stale(root, prefix) for prefix in (BUILDING, ".tmp-", ".probe-"))
 
 
 def entry_dir(root: Path, digest: str) -> Path:
