@@ -11,7 +11,7 @@ import threading
 
 from . import __version__
 from .errors import InputError, NoisecalError
-from .export.atomic import STDOUT, remove_leftovers
+from .export.atomic import STDOUT, WRITTEN, remove_leftovers
 from .history import DEFAULT_DB, printable
 from .jobs.result import ParameterError
 
@@ -250,6 +250,7 @@ def main(argv: list[str] | None = None) -> int:
     if threading.current_thread() is threading.main_thread():
         for sig in _SIGNALS:
             previous[sig] = signal.signal(sig, _on_signal)
+    first_written = len(WRITTEN)
     try:
         return _run(args, command, lambda job: _recorder(args, job))
     except ParameterError as exc:
@@ -261,9 +262,11 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt as exc:
         remove_leftovers()
         signum = exc.signum if isinstance(exc, Signalled) else signal.SIGINT
+        written = ", ".join(printable(str(f)) for f in WRITTEN[first_written:])
         try:
-            print(f"noisecal: interrupted ({signal.Signals(signum).name}); nothing was "
-                  "written", file=sys.stderr)
+            print(f"noisecal: interrupted ({signal.Signals(signum).name}); "
+                  + (f"{written} had been written" if written else "nothing was written"),
+                  file=sys.stderr)
         except OSError:
             pass
         return 128 + int(signum)

@@ -25,6 +25,8 @@ STDOUT = "-"
 
 _LIVE: set = set()
 """Temporary files not yet put in place; removed by :func:`remove_leftovers` on a signal."""
+WRITTEN: list = []
+"""Outputs this process has put in place (so that an interrupted run can say which)."""
 
 
 def _same(a: Path, b: Path) -> bool:
@@ -181,6 +183,7 @@ class Staged:
                     Path(final).unlink(missing_ok=True)
             raise
         self._pending = []
+        WRITTEN.extend(done)
         for text in self._stdout:
             sys.stdout.write(text)
         sys.stdout.flush()
