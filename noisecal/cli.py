@@ -70,7 +70,8 @@ def _parser() -> argparse.ArgumentParser:
 
     s = sub.add_parser("static", help="characterise a recording made at rest")
     s.add_argument("recording", help="CSV, Parquet or .npz; columns 'name [unit]', time first")
-    s.add_argument("-o", "--output", required=True, help="YAML block to write (- for standard output)")
+    s.add_argument("-o", "--output", required=True,
+                   help="YAML block to write (- for standard output)")
     s.add_argument("--dt", type=float, help="filter time step, s (default: sample period)")
     s.add_argument("--channels", help="comma-separated channels, in filter order")
     s.add_argument("--plot", help="PNG path (default: beside the YAML)")
@@ -91,7 +92,8 @@ def _parser() -> argparse.ArgumentParser:
     m.add_argument("--odometry", metavar="CONFIG",
                    help="the recording is wheel odometry (encoder ticks or increments) "
                    "described by this config YAML: fit the odometry motion model instead")
-    m.add_argument("-o", "--output", required=True, help="YAML block to write (- for standard output)")
+    m.add_argument("-o", "--output", required=True,
+                   help="YAML block to write (- for standard output)")
     m.add_argument("--plot", help="PNG path (default: beside the YAML)")
     m.add_argument("--covariate", help="fit sigma^2 = a + b*x^2 against this truth quantity "
                    "(speed, turn_rate, a truth channel, ...)")
@@ -111,7 +113,8 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--camera", required=True, help="camera YAML: intrinsics, distortion, pose")
     c.add_argument("--poses", help="per-frame platform poses (time, x, y, z [m], roll, pitch, "
                    "yaw [rad], world-from-body); the camera file's pose is then body-from-camera")
-    c.add_argument("-o", "--output", required=True, help="YAML block to write (- for standard output)")
+    c.add_argument("-o", "--output", required=True,
+                   help="YAML block to write (- for standard output)")
     c.add_argument("--plot", help="PNG path (default: beside the YAML)")
     c.add_argument("--ground", choices=["ray", "homography", "dlt"], default="ray",
                    help="pixels to ground: ray-plane (default), the camera file's homography, "
