@@ -160,3 +160,34 @@ def test_first_writers_of_a_new_database_lose_nothing(tmp_path):
     runs = runs_of(db, "SN")
     assert {r["input_sha256"] for r in runs} == {f"{t}-{i}" for t in "abcd" for i in range(10)}
     assert history.integrity(db) == "ok"
+
+
+def test_a_runs_files_and_its_row_appear_together(tmp_path, monkeypatch):
+    """The outputs are put in place inside the run's history transaction: while another
+    writer holds the lock past the bounded wait, neither the files nor the row appear;
+    once it is free, both do."""
+    from noisecal.export.atomic import Staged
+    from noisecal.jobs.history import Recorder
+
+    db = tmp_path / "h.db"
+    record_run(db, "SN", "g", "static", "a" * 64, "t", P)
+    rec = Recorder(str(db), "SN", "g", "static", lambda result: ({}, "b" * 64, None))
+    monkeypatch.setenv("NOISECAL_DB_WAIT", "0.3")
+    holder = sqlite3.connect(db, isolation_level=None)
+    holder.execute("BEGIN IMMEDIATE")
+    try:
+        with pytest.raises(InputError, match="locked"):
+            with Staged() as staged:
+                staged.text(tmp_path / "o.yaml", "x: 1\n")
+                staged.commit(rec(None))
+    finally:
+        holder.execute("ROLLBACK")
+        holder.close()
+    assert sorted(p.name for p in tmp_path.iterdir() if "yaml" in p.name) == []
+    assert len(runs_of(db, "SN")) == 1
+    with Staged() as staged:
+        staged.text(tmp_path / "o.yaml", "x: 1\n")
+        staged.commit(rec(None))
+    rec.close()
+    assert (tmp_path / "o.yaml").read_text() == "x: 1\n" and rec.run_id == 2
+    assert len(runs_of(db, "SN")) == 2
