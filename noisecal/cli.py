@@ -402,7 +402,8 @@ def _history(args, say) -> int:
     if args.export:
         rows = hist.export_csv(args.db, args.unit, args.output, args.param, args.since,
                                args.overwrite)
-        say(f"wrote {rows} row(s) to {printable(args.output)}")
+        where = "standard output" if args.output == STDOUT else printable(args.output)
+        say(f"wrote {rows} row(s) to {where}")
     if args.plot:
         hist.plot(args.db, args.unit, args.plot, args.param, args.since, args.overwrite)
         say(f"wrote {printable(args.plot)}")
