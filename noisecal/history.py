@@ -146,6 +146,14 @@ def _check_file(path: Path, write: bool) -> int:
             check = con.execute("PRAGMA quick_check(1)").fetchone()[0]
             return version, names, check
         version, names, check = _waiting(path, look)
+        # Another run creating this database can show its tables before its schema
+        # version for a moment (seen under load with two first writers): look again
+        # before calling the file another program's.
+        for _ in range(20):
+            if not (version == 0 and names - {n for n in names if n.startswith("sqlite_")}):
+                break
+            time.sleep(0.05)
+            version, names, check = _waiting(path, look)
     except sqlite3.DatabaseError:
         raise _corrupt(path) from None
     finally:

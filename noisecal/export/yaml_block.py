@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 import yaml
 
+from ..ingest.yaml_file import GuardedLoader, quote_for_loader
 from ..types import Estimate, FilterBlock, Recording
 from ..units import derived_unit
 
@@ -165,6 +166,9 @@ def _represent_list(dumper, data):
 
 
 _Dumper.add_representer(list, _represent_list)
+# Text that the reading side (YAML 1.2 numbers) would take for a number is quoted,
+# so a name such as "1e3" comes back a name.
+quote_for_loader(_Dumper)
 
 
 CHECKSUM = "checksum"
@@ -240,8 +244,8 @@ def render(sections: dict, title: str | None = None, comments: dict | None = Non
         sections = _relative_side_files(sections, Path(out).resolve().parent)
     # The checksum covers the values as a reader gets them back, so round trip first.
     body = {k: v for k, v in sections.items() if k != CHECKSUM}
-    stamp = digest(yaml.safe_load(yaml.dump(body, Dumper=_Dumper, sort_keys=False,
-                                            allow_unicode=True)))
+    stamp = digest(yaml.load(yaml.dump(body, Dumper=_Dumper, sort_keys=False,
+                                       allow_unicode=True), Loader=GuardedLoader))
     sections = {**body, CHECKSUM: stamp}
     comments = {**comments, CHECKSUM: comments.get(CHECKSUM, (
         "SHA-256 of the sections above (canonical JSON, keys sorted). A re-check refuses\n"

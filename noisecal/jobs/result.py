@@ -89,7 +89,9 @@ class JobResult:
             raise InputError(f"{path}: is a folder; give a file name for the YAML block")
         if path.exists() and not overwrite:
             raise ParameterError("path", str(path), "exists; pass overwrite=True to replace it")
-        write_text(path, self._render(path))
+        # Put in place exclusively unless replacing was asked for: a file that
+        # appeared meanwhile (another run) is refused, not replaced.
+        write_text(path, self._render(path), overwrite=overwrite)
         return path
 
     def estimate(self, channel: str, name: str) -> Estimate:

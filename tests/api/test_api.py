@@ -166,3 +166,17 @@ def test_recheck_from_python_and_side_files_relative(tmp_path):
     assert again.verdict == "consistent"
     with pytest.raises(ValueError, match="tolerance=1.0"):
         noisecal.recheck(block, csv, tolerance=1.0)
+
+
+def test_a_number_like_name_survives_the_block(tmp_path):
+    """A channel named like a YAML 1.2 number ("1e3") is written quoted and re-checks:
+    the block's checksum and the reader see the same text (YAML 1.2 core schema)."""
+    y = simulate_rate(np.array([0, 1e-8, 0, 0, 0]), 0.01, 2 ** 13, np.random.default_rng(2))
+    csv = tmp_path / "g.csv"
+    with open(csv, "w") as fh:
+        fh.write("time [s],1e3 [rad/s]\n")
+        np.savetxt(fh, np.column_stack([np.arange(y.size) * 0.01, y]), delimiter=",")
+    res = noisecal.static(noisecal.read(csv, cache=False), reps=40, seed=3)
+    block = res.write(tmp_path / "b.yaml")
+    assert "'1e3':" in block.read_text() or '"1e3":' in block.read_text()
+    assert noisecal.recheck(block, csv, verdict_on="decidable").exit_status == 0

@@ -98,7 +98,9 @@ def test_interrupted_run_leaves_no_output(tmp_path, fresh_cache):
     The signal is sent once the progress bar (drawn because stderr is a
     terminal, here a pseudo-terminal) shows the bootstrap under way and not
     finished, so the job is interrupted mid-bootstrap however fast it runs;
-    2000 replicates keep that phase seconds long."""
+    50 000 replicates keep that phase a minute long, so a loaded machine reading the
+    terminal late still finds the job mid-bootstrap (with 2000 the job sometimes had
+    finished before the signal arrived and exited 0)."""
     import fcntl
     import pty
     import re
@@ -119,7 +121,7 @@ def test_interrupted_run_leaves_no_output(tmp_path, fresh_cache):
     # A new pseudo-terminal is 0 columns wide, and tqdm draws nothing in no width.
     fcntl.ioctl(slave, termios.TIOCSWINSZ, struct.pack("HHHH", 24, 120, 0, 0))
     proc = subprocess.Popen([sys.executable, "-m", "noisecal.cli", "static", str(path), "-o",
-                             str(out), "--reps", "2000"], env=env, stdin=subprocess.DEVNULL,
+                             str(out), "--reps", "50000"], env=env, stdin=subprocess.DEVNULL,
                             stdout=subprocess.DEVNULL, stderr=slave)
     os.close(slave)
     text, sent = "", False
@@ -138,7 +140,7 @@ def test_interrupted_run_leaves_no_output(tmp_path, fresh_cache):
                 text += chunk.decode("utf-8", "replace")
             if not sent:
                 done = [(int(a), int(b)) for a, b in bar.findall(text)]
-                if any(0 < a < b for a, b in done):
+                if any(0 < a < b for a, b in done) and proc.poll() is None:
                     proc.send_signal(2)
                     sent = True
             elif proc.poll() is not None:

@@ -153,7 +153,7 @@ def test_demo_encoder_run(tmp_path, run_cli):
 
 @pytest.mark.parametrize("config, expect", [
     ("encoders: {left: l, right: r, ticks_per_rev: 0, wheel_radius_m: 0.1, "
-     "track_width_m: 0.5}\n", "'ticks_per_rev' must be a positive number"),
+     "track_width_m: 0.5}\n", "'ticks_per_rev' must be a positive finite number"),
     ("increments: {dx: a}\n", "names the channels dx, dy"),
     ("window_s: 0.5\n", "exactly one of 'encoders:'"),
 ])
