@@ -39,6 +39,9 @@ def _env(tmp_path, **extra) -> dict:
 
 def _start(tmp_path, *args, env=None, **kw) -> subprocess.Popen:
     """``noisecal ARGS`` as its own process, in ``tmp_path``."""
+    # A shell's background job starts with SIGINT ignored (and Python then installs no
+    # Ctrl-C handler): the child gets the default back, as from a terminal.
+    kw.setdefault("preexec_fn", lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     return subprocess.Popen([sys.executable, "-m", "noisecal.cli", *map(str, args)],
                             cwd=tmp_path, env=env or _env(tmp_path), stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, **kw)

@@ -118,9 +118,15 @@ def test_doctests():
 finite = st.floats(min_value=1e-300, max_value=1e300, allow_nan=False, allow_infinity=False)
 
 
-@settings(max_examples=200, deadline=None)
+# Methods are the project's own sentences: printable text (YAML folds line breaks,
+# NEL and the line and paragraph separators included, into spaces).
+printable = st.text(st.characters(blacklist_categories=("Cc", "Cs", "Zl", "Zp")),
+                    max_size=30)
+
+
+@settings(max_examples=200, deadline=None, derandomize=True)
 @given(st.lists(finite, min_size=3, max_size=3), st.booleans(), st.sampled_from(
-    ["rad/s/Hz^0.5", "m/s**2", "1"]), st.text(max_size=30), st.booleans())
+    ["rad/s/Hz^0.5", "m/s**2", "1"]), printable, st.booleans())
 def test_estimate_round_trip(values, resolved, unit, method, with_tau):
     """An Estimate written into a block and read back is the same Estimate (every float,
     the unit, the method, the tau range)."""
