@@ -157,20 +157,21 @@ def _clean_once(folder: Path, prefix: str | None = None) -> None:
         clean_stale(folder, prefix)
 
 
-def _state(path: Path) -> tuple:
+def _readable(look, path: Path):
+    """``look(path)``, an OSError turned into the one-line input error."""
     try:
-        return cache.file_state(path)
+        return look(path)
     except OSError as exc:
         raise InputError(f"{path}: cannot be read ({exc.strerror}); check the path "
                          "and permissions") from None
+
+
+def _state(path: Path) -> tuple:
+    return _readable(cache.file_state, path)
 
 
 def _probe(path: Path) -> str:
-    try:
-        return cache.probe(path)
-    except OSError as exc:
-        raise InputError(f"{path}: cannot be read ({exc.strerror}); check the path "
-                         "and permissions") from None
+    return _readable(cache.probe, path)
 
 
 def _unchanged(path: Path, state: tuple) -> None:
