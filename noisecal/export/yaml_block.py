@@ -187,11 +187,22 @@ def side_file(path) -> str:
     return str(Path(text).resolve())
 
 
+def _canonical(value):
+    """Mappings with text keys (a damaged block may mix 0 and "a", which cannot be
+    sorted); a key that is not text keeps its type in its name."""
+    if isinstance(value, dict):
+        return {(k if isinstance(k, str) else f"<{type(k).__name__}>{k!r}"): _canonical(v)
+                for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_canonical(v) for v in value]
+    return value
+
+
 def digest(sections: dict) -> str:
     """``sha256:<hex>`` of the sections as read back from YAML, dumped as canonical
     JSON (keys sorted, no spaces): comments and layout of the text do not count, any
     changed value, key or list does. The ``checksum`` section itself is left out."""
-    body = {k: v for k, v in sections.items() if k != CHECKSUM}
+    body = _canonical({k: v for k, v in sections.items() if k != CHECKSUM})
     text = json.dumps(body, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
                       default=str)
     return "sha256:" + hashlib.sha256(text.encode("utf-8")).hexdigest()
