@@ -35,7 +35,7 @@ from scipy import optimize, stats
 from ..analysis.allan import deviation
 from ..types import AllanCurve, Estimate
 from ..units import derived_unit
-from .simulate import TERM_NAMES, RateModel, basis, simulate_rate
+from .simulate import TERM_NAMES, RateModel, basis
 
 FULL_SIM_MAX = 2 ** 16
 """Longest record simulated sample for sample; longer ones are simulated decimated."""

@@ -201,7 +201,7 @@ def _read_entry(folder: Path, digest: str, verify: bool):
         raise Damaged("meta.json does not match its checksum")
     if meta.get("sha256") != digest or meta.get("layout") != LAYOUT:
         raise Damaged("the entry records another input hash")
-    names = [f"time.npy"] + [f"c{i}.npy" for i in range(len(meta["names"]))]
+    names = ["time.npy"] + [f"c{i}.npy" for i in range(len(meta["names"]))]
     if not isinstance(files, dict) or sorted(files) != sorted(names):
         raise Damaged("meta.json lists other column files")
     arrays = []

@@ -32,7 +32,7 @@ from ..types import AllanCurve, ChannelModel, FilterBlock, Recording
 from ..units import customary
 from .parallel import SharedBar, map_ordered
 from .progress import StageBars, progress_bar
-from .result import JobResult, Parameter
+from .result import JobResult, Parameter, ParameterError
 
 MIN_SAMPLES = 1024
 """Fewest contiguous samples: gives an octave curve of nine points (τ0 … 256 τ0)."""

@@ -186,3 +186,15 @@ def test_a_number_like_name_survives_the_block(tmp_path):
     block = res.write(tmp_path / "b.yaml")
     assert "'1e3':" in block.read_text() or '"1e3":' in block.read_text()
     assert noisecal.recheck(block, csv, verdict_on="decidable").exit_status == 0
+
+
+def test_the_job_function_checks_its_options_too(gyro):
+    """characterise, which the re-check calls with a baseline's settings, refuses a
+    replicate count or time step out of range with the same one-line ParameterError."""
+    from noisecal.jobs.static import characterise
+
+    rec = noisecal.read({"gyro_x": gyro}, period=0.01, units={"gyro_x": "rad/s"})
+    with pytest.raises(ValueError, match="reps=5: at least 20"):
+        characterise(rec, reps=5)
+    with pytest.raises(ValueError, match="dt=-1"):
+        characterise(rec, dt=-1, reps=40)

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from noisecal.export import yaml_block
 from noisecal.ingest import read_recording
 from noisecal.ingest.mapping import read_map
 from noisecal.jobs import motion
