@@ -33,14 +33,20 @@ SPIKE_SIGMAS = 10.0
 gives one beyond 10σ with probability 1.5e-23 per sample."""
 
 
+SPIKE_SHARE = 0.5
+"""Share of the sample-to-sample variance the spikes must carry to count."""
+
+
 def spikes(y: np.ndarray, period: float) -> tuple:
     """Isolated glitches in a static record: (count, time of the first, s).
 
-    A sample that differs from the median of its four neighbours by more than
-    ``SPIKE_SIGMAS`` robust standard deviations of the sample-to-sample
+    A sample that differs from the median of its five-sample window by more
+    than ``SPIKE_SIGMAS`` robust standard deviations of the sample-to-sample
     differences (MAD × 1.4826/√2; Rousseeuw & Croux 1993) is a spike: a
     logger glitch or a shock, which the Allan variance would read as white
-    noise (one spike of 5000σ tripled N in a test record).
+    noise (one spike of 5000σ tripled N in a test record). They are reported
+    when they carry at least ``SPIKE_SHARE`` of the sample-to-sample variance,
+    so heavy-tailed noise is not called glitches.
 
     Parameters
     ----------
@@ -49,17 +55,30 @@ def spikes(y: np.ndarray, period: float) -> tuple:
     period : float
         Sample period, s.
     """
-    from scipy.ndimage import median_filter
-
     y = np.asarray(y[: 1 << 21], dtype=np.float64)
-    if y.shape[0] < 8:
+    n = y.shape[0]
+    if n < 8:
         return (0, None)
     d = np.diff(y)
     sigma = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
     if sigma <= 0:
         return (0, None)
-    hit = np.flatnonzero(np.abs(y - median_filter(y, size=5, mode="nearest"))
-                         > SPIKE_SIGMAS * sigma)
+    # A sample K σ from the median of its five-sample window differs by more than K σ
+    # from at least two of its four neighbours, so one of the four steps about it
+    # exceeds K σ/2: only those few candidates need the median (a full median filter
+    # cost 0.2 s per channel on 2^21 samples).
+    big = np.flatnonzero(np.abs(d) > SPIKE_SIGMAS * sigma / 2.0)
+    cand = np.unique(np.clip((big[:, None] + np.arange(-1, 3)).ravel(), 0, n - 1))
+    window = np.clip(cand[:, None] + np.arange(-2, 3), 0, n - 1)
+    med = np.median(y[window], axis=1)
+    excess = np.abs(y[cand] - med)
+    hit = cand[excess > SPIKE_SIGMAS * sigma]
+    # Heavy-tailed noise has its share of far samples too; spikes count when they
+    # carry most of the sample-to-sample variance (one glitch of 5000 σ: all of it;
+    # Student-t noise of 3 degrees of freedom: about a fifth).
+    share = float(np.sum(excess[excess > SPIKE_SIGMAS * sigma] ** 2) / np.sum(d * d / 2.0))
+    if share < SPIKE_SHARE:
+        return (0, None)
     return (int(hit.shape[0]), float(hit[0] * period) if hit.size else None)
 
 
