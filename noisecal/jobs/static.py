@@ -223,6 +223,7 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
         per = {name: ChannelResult(*out) for name, out in zip(names, outs)}
     models = [c.model for c in per.values()]
     block = filter_block(models, step)
+    block = replace(block, notes=block.notes + _dt_notes(models, step))
     sections = _sections(rec, models, [c.psd for c in per.values()], block, seed, reps,
                          command)
     return StaticResult(rec, per, block, sections, reps, seed)
@@ -261,6 +262,25 @@ def _channel(rec: Recording, name: str, reps: int, seed: int, bar):
                                            spikes(y[a:b], rec.period)),
                          turn_on=turn_on_bias(y, unit, fit.c2, rec.duration))
     return model, dense, hadamard, psd
+
+
+def _dt_notes(models: list, dt: float) -> tuple:
+    """A note per channel whose low-pass time constant T is not small against dt.
+
+    R = N²/dt assumes the samples a filter takes dt apart are independent; within
+    about ten time constants they are not, and the variance of one sample at the
+    sample rate (``bandwidth.sample_std``²) is what the filter actually sees.
+    """
+    out = []
+    for m in models:
+        T = m.fit.band_limit_time if m.fit is not None else 0.0
+        if T > 0 and dt < 10.0 * T:
+            out.append(f"{m.channel}: dt = {dt:.3g} s is within ten times the sensor's "
+                       f"low-pass time constant ({T:.3g} s): consecutive samples are "
+                       f"correlated, R = N^2/dt = {m.terms['white_noise'].value ** 2 / dt:.3g} "
+                       f"overstates one sample's variance ({m.curve.dev[0] ** 2:.3g} at the "
+                       "sample rate); step the filter slower or model the low-pass")
+    return tuple(out)
 
 
 def _white_taus(fit, curve):

@@ -174,3 +174,18 @@ def test_a_glitch_fails_the_model_check():
                   simulate_rate(np.array([0, 0, 0, 1e-6, 0]), PERIOD, n, rng),
                   rng.standard_t(3, 2 ** 20) * 1e-3):
         assert spikes(clean, PERIOD)[0] == 0
+
+
+def test_filter_block_says_when_dt_meets_the_low_pass():
+    """A 10 Hz low-passed gyro (time constant ~10 ms) characterised for a 10 ms filter
+    step: the block says R = N²/dt overstates one sample's variance; for a 1 s step it
+    says nothing (common practice, no source: samples within a filter's time constant
+    are correlated)."""
+    import noisecal
+
+    y = simulate_rate(np.array([0, N ** 2, 0, 0, 0]), PERIOD, 2 ** 16, np.random.default_rng(5))
+    rec = noisecal.read({"g": low_pass(y, PERIOD, 10.0)}, period=PERIOD, units={"g": "rad/s"})
+    near = noisecal.static(rec, reps=40, dt=PERIOD).block.notes
+    far = noisecal.static(rec, reps=40, dt=1.0).block.notes
+    assert any("low-pass time constant" in n for n in near)
+    assert not any("low-pass time constant" in n for n in far)
