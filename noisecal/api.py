@@ -29,29 +29,11 @@ from __future__ import annotations
 import numbers
 from pathlib import Path
 
-import numpy as np
 
-from .jobs.result import ParameterError
+from .jobs.result import ParameterError, seconds, whole
 from .types import Recording
 
 __all__ = ["read", "static", "motion", "odometry", "targets", "recheck", "ParameterError"]
-
-
-def _int(name: str, value, lowest: int) -> int:
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
-        raise ParameterError(name, value, "give a whole number")
-    if value < lowest:
-        raise ParameterError(name, value, f"give at least {lowest}")
-    return int(value)
-
-
-def _positive(name: str, value, none_ok: bool = True) -> float | None:
-    if value is None and none_ok:
-        return None
-    if isinstance(value, bool) or not isinstance(value, numbers.Real) or not (
-            np.isfinite(value) and value > 0):
-        raise ParameterError(name, value, "give a positive number of seconds")
-    return float(value)
 
 
 def _probability(name: str, value) -> float:
@@ -121,7 +103,7 @@ def read(source, *, period: float | None = None, units: dict | None = None,
         return read_recording(source, repair=repair, use_cache=bool(cache))
     from .ingest.arrays import read_arrays
 
-    return read_arrays(source, _positive("period", period), units, time)
+    return read_arrays(source, seconds("period", period), units, time)
 
 
 def static(recording, *, channels: list[str] | None = None, dt: float | None = None,
@@ -150,21 +132,8 @@ def static(recording, *, channels: list[str] | None = None, dt: float | None = N
     """
     from .jobs.static import characterise
 
-    rec = _recording("recording", recording)
-    if reps is None or isinstance(reps, bool) or not isinstance(reps, numbers.Integral) \
-            or reps < 20:
-        raise ParameterError("reps", reps, "at least 20 bootstrap replicates are needed for "
-                             "a 95 % interval; 200 is the default")
-    seed = _int("seed", seed, 0)
-    dt = _positive("dt", dt)
-    if channels is not None:
-        if isinstance(channels, str) or not all(isinstance(c, str) for c in channels):
-            raise ParameterError("channels", channels, "give a list of channel names")
-        missing = [c for c in channels if c not in rec.channels]
-        if missing:
-            raise ParameterError("channels", channels, f"{', '.join(missing)} not in the "
-                                 f"recording; its channels are {', '.join(rec.channels)}")
-    return characterise(rec, list(channels) if channels else None, dt, int(reps), seed,
+    # characterise checks the options (the re-check calls it with a baseline's too).
+    return characterise(_recording("recording", recording), channels, dt, reps, seed,
                         not progress, command)
 
 
@@ -195,8 +164,8 @@ def motion(recording, *, truth, map: str | None = None, covariate: str | None = 
 
     sensor, tr = _recording("recording", recording), _recording("truth", truth)
     gate = _probability("gate", gate)
-    max_offset = _positive("max_offset", max_offset, none_ok=False)
-    seed = _int("seed", seed, 0)
+    max_offset = seconds("max_offset", max_offset, none_ok=False)
+    seed = whole("seed", seed, 0)
     if covariate is not None and not isinstance(covariate, str):
         raise ParameterError("covariate", covariate, "give a truth quantity name, e.g. 'speed'")
     mapping = (read_map(_path("map", map), covariate) if map is not None
@@ -225,7 +194,7 @@ def odometry(recording, *, truth, config, max_offset: float = 1.0, command: str 
 
     odo, tr = _recording("recording", recording), _recording("truth", truth)
     cfg = read_odometry_config(_path("config", config))
-    return analyse(odo, tr, cfg, _positive("max_offset", max_offset, none_ok=False), command)
+    return analyse(odo, tr, cfg, seconds("max_offset", max_offset, none_ok=False), command)
 
 
 def targets(detections, *, survey, camera, poses=None, ground: str = "ray",
@@ -257,7 +226,7 @@ def targets(detections, *, survey, camera, poses=None, ground: str = "ray",
     det = read_detections(_path("detections", detections), sv, cam)
     if poses is not None:
         cam = posed_camera(cam, _recording("poses", poses), det)
-    return analyse(cam, sv, det, ground, _probability("gate", gate), _int("seed", seed, 0),
+    return analyse(cam, sv, det, ground, _probability("gate", gate), whole("seed", seed, 0),
                    command)
 
 

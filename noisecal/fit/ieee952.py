@@ -100,7 +100,8 @@ def basis6(taus: np.ndarray) -> np.ndarray:
     White noise through a low-pass of equivalent first-order time constant T
     has, once τ is several T, the Allan variance N²/τ − 3N²T/(2τ²): a
     quantization-shaped term of negative sign (common practice, no source;
-    checked by simulation in tests/fit/test_band_limit.py). Its coefficient
+    checked against a one-pole filter's exact Allan variance in
+    tests/fit/test_real_sensors.py). Its coefficient
     c_L = N²T/2 gives T = 2c_L/N². The quantization and band-limit columns are
     never in one model.
 
@@ -542,20 +543,6 @@ def mixture_edf(curve: AllanCurve, segments: list[tuple[int, int]], c6: np.ndarr
         for a in alphas:
             nu[j] = min(nu[j], pooled_edf(a, "oadev", int(m), lengths[ok], weights[ok]))
     return nu
-
-
-def one_pole(y: np.ndarray, period: float, time_constant: float) -> np.ndarray:
-    """First-order low-pass of DC gain 1 whose Allan deficit is 3N²T/(2τ²), T = ``time_constant``.
-
-    For y_k = a·y_(k−1) + (1 − a)·w_k the variance of a sum of m samples is
-    σ²(m − 2a/(1 − a²)) plus terms in a^m (from the AR(1) autocovariance
-    σ²(1 − a)a^|j|/(1 + a)), so a solves T(1 − a²) = 2a·period; for T ≫
-    period, a ≈ exp(−period/T).
-    """
-    from scipy.signal import lfilter
-
-    a = (np.hypot(period, time_constant) - period) / time_constant
-    return lfilter([1.0 - a], [1.0, -a], y)
 
 
 def fit_terms(curve: AllanCurve, period: float, segments: list[tuple[int, int]],

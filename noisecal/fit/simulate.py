@@ -166,6 +166,26 @@ def gauss_markov(n: int, period: float, sigma: float, corr_time: float,
     return lfilter([1.0], [1.0, -phi], w)
 
 
+def pole_for(period: float, time_constant: float) -> float:
+    """Pole a of the one-pole low-pass whose Allan deficit is 3N²T/(2τ²), T = ``time_constant``.
+
+    For y_k = a·y_(k−1) + (1 − a)·w_k the variance of a sum of m samples is
+    σ²(m − 2a/(1 − a²)) plus terms in a^m (from the AR(1) autocovariance
+    σ²(1 − a)a^|j|/(1 + a)), so a solves T(1 − a²) = 2a·period; for T ≫
+    period, a ≈ exp(−period/T).
+    """
+    return float((np.hypot(period, time_constant) - period) / time_constant)
+
+
+def one_pole(y: np.ndarray, period: float, time_constant: float) -> np.ndarray:
+    """First-order low-pass of DC gain 1 with the pole of :func:`pole_for`: the band
+    limit in bootstrap replicates."""
+    from scipy.signal import lfilter
+
+    a = pole_for(period, time_constant)
+    return lfilter([1.0 - a], [1.0, -a], y)
+
+
 @dataclass(frozen=True)
 class RateModel:
     """A rate process of known terms, as the parametric bootstraps simulate it.
@@ -190,18 +210,11 @@ class RateModel:
 
     def __call__(self, period: float, n: int, rng: np.random.Generator) -> np.ndarray:
         y = simulate_rate(np.maximum(self.c2, 0.0), period, n, rng, gm=self.gm)
-        if self.low_pass > 0:
-            from scipy.signal import lfilter
-
-            a = self.pole(period)
-            y = lfilter([1.0 - a], [1.0, -a], y)
-        return y
+        return one_pole(y, period, self.low_pass) if self.low_pass > 0 else y
 
     def pole(self, period: float) -> float:
-        """Pole of the discrete low-pass at ``period`` (that of ``ieee952.one_pole``; tested)."""
-        if self.low_pass <= 0:
-            return 0.0
-        return float((np.hypot(period, self.low_pass) - period) / self.low_pass)
+        """Pole of the discrete low-pass at ``period`` (:func:`pole_for`; 0 for none)."""
+        return pole_for(period, self.low_pass) if self.low_pass > 0 else 0.0
 
     def params(self, period: float) -> np.ndarray:
         """Per-sample parameters of a record at ``period`` (``engine.RECORD_PARAMS``)."""

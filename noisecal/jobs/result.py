@@ -8,6 +8,8 @@ views made from it. :class:`JobResult` is the part they share.
 from __future__ import annotations
 
 import copy
+import math
+import numbers
 from pathlib import Path
 from typing import NamedTuple
 
@@ -52,6 +54,25 @@ class ParameterError(InputError, ValueError):
     def as_option(self) -> str:
         """The same message with the command-line option in place of the parameter."""
         return f"--{self.param.replace('_', '-')} {self.value}: {self.text}"
+
+
+def whole(name: str, value, lowest: int) -> int:
+    """``value`` as a whole number of at least ``lowest``, or a ParameterError."""
+    if isinstance(value, bool) or not isinstance(value, numbers.Integral):
+        raise ParameterError(name, value, "give a whole number")
+    if value < lowest:
+        raise ParameterError(name, value, f"give at least {lowest}")
+    return int(value)
+
+
+def seconds(name: str, value, none_ok: bool = True) -> float | None:
+    """``value`` as a positive finite number of seconds (None allowed if ``none_ok``)."""
+    if value is None and none_ok:
+        return None
+    if isinstance(value, bool) or not isinstance(value, numbers.Real) or not (
+            math.isfinite(value) and value > 0):
+        raise ParameterError(name, value, "give a positive number of seconds")
+    return float(value)
 
 
 class JobResult:

@@ -9,6 +9,7 @@ block and Allan plot, written atomically.
 from __future__ import annotations
 
 import datetime as _dt
+import numbers
 from dataclasses import dataclass, fields, replace
 from pathlib import Path
 
@@ -32,7 +33,7 @@ from ..types import AllanCurve, ChannelModel, FilterBlock, Recording
 from ..units import customary
 from .parallel import SharedBar, map_ordered
 from .progress import StageBars, progress_bar
-from .result import JobResult, Parameter, ParameterError
+from .result import JobResult, Parameter, ParameterError, seconds, whole
 
 MIN_SAMPLES = 1024
 """Fewest contiguous samples: gives an octave curve of nine points (τ0 … 256 τ0)."""
@@ -153,10 +154,12 @@ def select_channels(rec: Recording, channels: list[str] | None) -> list[str]:
                 + "), none a rate, acceleration, angle, length, field or pressure; name "
                 "one with --channels to fit it anyway")
         return chosen
+    if isinstance(channels, str) or not all(isinstance(c, str) for c in channels):
+        raise ParameterError("channels", channels, "give a list of channel names")
     missing = [c for c in channels if c not in rec.channels]
     if missing:
-        raise InputError(f"--channels: {', '.join(missing)} not in {rec.source.path}; "
-                         f"its channels are {', '.join(rec.channels)}")
+        raise ParameterError("channels", channels, f"{', '.join(missing)} not in "
+                             f"{rec.source.path}; its channels are {', '.join(rec.channels)}")
     return list(channels)
 
 
@@ -199,12 +202,11 @@ def characterise(rec: Recording, channels: list[str] | None = None, dt: float | 
     """
     names = select_channels(rec, channels)
     check_length(rec)
-    if reps < 20:
+    if isinstance(reps, bool) or not isinstance(reps, numbers.Integral) or reps < 20:
         raise ParameterError("reps", reps, "at least 20 bootstrap replicates are needed "
                              "for a 95 % interval; 200 is the default")
-    step = rec.period if dt is None else dt
-    if not (np.isfinite(step) and step > 0):
-        raise ParameterError("dt", dt, "not a positive time step; give seconds, e.g. 0.01")
+    reps, seed = int(reps), whole("seed", seed, 0)
+    step = rec.period if dt is None else seconds("dt", dt)
     for name in names:
         spread = float(np.ptp(rec.channel(name)))
         if spread == 0:

@@ -16,9 +16,9 @@ import pytest
 from scipy import stats
 
 from noisecal.fit.gauss_markov import _fit_many, _fit_one
-from noisecal.fit.ieee952 import (one_pole, pivot_interval, replicate_curves,
+from noisecal.fit.ieee952 import (pivot_interval, replicate_curves,
                                   replicate_curves_reference, weighted_nnls)
-from noisecal.fit.simulate import RateModel, basis, gm_avar, simulate_rate
+from noisecal.fit.simulate import RateModel, basis, gm_avar, one_pole, simulate_rate
 
 PERIOD = 0.01
 M = 2 ** np.arange(16)

@@ -14,9 +14,9 @@ from scipy import signal
 
 from noisecal.analysis.allan import allan_curve, deviation
 from noisecal.analysis.psd import white_level
-from noisecal.fit.ieee952 import basis6, fit_terms, one_pole, term_estimates
+from noisecal.fit.ieee952 import basis6, fit_terms, term_estimates
 from noisecal.fit.model_check import check_model
-from noisecal.fit.simulate import simulate_rate
+from noisecal.fit.simulate import one_pole, simulate_rate
 from tests.sensor_sim import adc, kasdin_flicker, low_pass, vibration
 
 PERIOD = 0.01
