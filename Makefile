@@ -9,7 +9,7 @@ STAMP  := $(VENV)/.installed
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test]'
+	$(BIN)/python -m pip install --quiet -e '.[test,fleet]'
 	touch $(STAMP)
 
 ## Run the static characterisation on the committed demo recording; writes reports/.

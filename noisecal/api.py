@@ -33,7 +33,8 @@ from pathlib import Path
 from .jobs.result import ParameterError, seconds, whole
 from .types import Recording
 
-__all__ = ["read", "static", "motion", "odometry", "targets", "recheck", "ParameterError"]
+__all__ = ["read", "static", "motion", "odometry", "targets", "recheck", "batch", "fleet",
+           "ParameterError"]
 
 
 def _probability(name: str, value) -> float:
@@ -290,3 +291,83 @@ def recheck(baseline, recording, *, truth=None, limits: str | None = None,
                poses=None if poses is None else _path("poses", poses),
                accept_edited=bool(accept_edited), verdict_on=verdict_on,
                at=None if at is None else [float(v) for v in at])
+
+
+def batch(manifest, *, output, db=None, scheduler: str | None = None,
+          workers: int | None = None, overwrite: bool = False, progress: bool = False,
+          command: str = "", say=None):
+    """Run every row of a manifest on Dask workers and store each run in the history.
+
+    Parameters
+    ----------
+    manifest : str or Path
+        CSV with the header ``job,recording,unit,sensor`` (optional ``truth``,
+        ``camera``, ``survey``, ``baseline``, ``map``, ``config``, ``poses``,
+        ``options``) or YAML ``rows: [...]``; paths relative to the manifest.
+    output : str or Path
+        Output folder: ``<unit>/<sensor>.<job>.yaml`` (and ``.png``) per row.
+    db : str or Path, optional
+        History database (default ``output/history.db``), written by this process only.
+    scheduler : str, optional
+        Address of a running Dask scheduler; default a local cluster of processes.
+    workers : int, optional
+        Processes of the local cluster (default one per core).
+    overwrite : bool
+        Run every row again, unchanged inputs included.
+    progress : bool
+        A bar over rows on a terminal.
+    command : str
+        Command line for the provenance.
+    say : callable, optional
+        Called with one line per finished row.
+
+    Returns
+    -------
+    BatchResult
+        ``rows`` (each done, unchanged or failed with its one-line error),
+        ``exit_status`` (0 all rows succeeded, 1 otherwise), ``summary()``.
+    """
+    from .jobs.batch import run_batch
+
+    if workers is not None:
+        workers = whole("workers", workers, 1)
+    if scheduler is not None and not isinstance(scheduler, str):
+        raise ParameterError("scheduler", scheduler, "give an address such as "
+                             "'tcp://127.0.0.1:8786'")
+    return run_batch(_path("manifest", manifest), _path("output", output),
+                     None if db is None else _path("db", db), scheduler or None, workers,
+                     bool(overwrite), not progress, command, say)
+
+
+def fleet(db, *, output=None, sensor: str | None = None, limits=None, plot=None,
+          overwrite: bool = False):
+    """The fleet's distribution of every stored parameter, across units.
+
+    Parameters
+    ----------
+    db : str or Path
+        History database.
+    output : str or Path, optional
+        YAML summary to write.
+    sensor : str, optional
+        Only runs stored under this sensor name.
+    limits : str or Path, optional
+        Limits YAML ``limits: {channel: {parameter: {max: x}}}`` (SI).
+    plot : str or Path, optional
+        PNG of each unit's value and interval against the fleet's.
+    overwrite : bool
+        Replace existing outputs.
+
+    Returns
+    -------
+    FleetResult
+        Per parameter: the fleet's median and spread with intervals, units outside
+        the fleet or a limit, the median's drift over time.
+    """
+    from .jobs.fleet import run_fleet
+
+    if sensor is not None and not isinstance(sensor, str):
+        raise ParameterError("sensor", sensor, "give a sensor name")
+    return run_fleet(_path("db", db), None if output is None else _path("output", output),
+                     sensor, None if limits is None else _path("limits", limits),
+                     None if plot is None else _path("plot", plot), bool(overwrite))

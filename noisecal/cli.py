@@ -169,6 +169,32 @@ def _parser() -> argparse.ArgumentParser:
     h.add_argument("--plot", help="PNG: each parameter with its interval over time")
     h.add_argument("--overwrite", action="store_true", help="replace existing outputs")
 
+    b = sub.add_parser("batch", help="run every row of a manifest on Dask workers (local "
+                       "cluster by default); exit 0 all rows done, 1 some failed")
+    b.add_argument("manifest", help="CSV (job,recording,unit,sensor[,truth,camera,survey,"
+                   "baseline,map,config,poses,options]) or YAML; paths relative to it")
+    b.add_argument("-o", "--output", required=True, metavar="OUTDIR",
+                   help="output folder: OUTDIR/<unit>/<sensor>.<job>.yaml and .png")
+    b.add_argument("--db", help="history database (default OUTDIR/history.db)")
+    b.add_argument("--scheduler", metavar="ADDRESS", default=os.environ.get(
+                   "NOISECAL_SCHEDULER") or None, help="a running Dask scheduler, e.g. "
+                   "tcp://10.0.0.5:8786 (default NOISECAL_SCHEDULER, else a local cluster)")
+    b.add_argument("--workers", type=_ranged(int, 1, example="2"),
+                   help="processes of the local cluster (default one per core)")
+    b.add_argument("--overwrite", action="store_true", help="run every row again and "
+                   "replace outputs no batch wrote")
+    b.add_argument("--quiet", action="store_true", help="no progress bar")
+
+    f = sub.add_parser("fleet", help="the fleet's distribution of each parameter from a "
+                       "history database")
+    f.add_argument("--db", required=True, help="history database (e.g. OUTDIR/history.db)")
+    f.add_argument("--sensor", help="only runs of this sensor name")
+    f.add_argument("-o", "--output", required=True, help="YAML summary to write")
+    f.add_argument("--plot", help="PNG: each unit's value and interval against the fleet's")
+    f.add_argument("--limits", help="limits YAML: limits: {channel: {parameter: {max: x}}} "
+                   "(SI)")
+    f.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+
     i = sub.add_parser("inspect", help="describe a recording and the problems found")
     i.add_argument("recording")
     i.add_argument("--repair", choices=["sort", "drop"])
@@ -355,6 +381,23 @@ def _run(args, command: str, recorder) -> int:
             return result.exit_status
         elif args.command == "history":
             return _history(args, say)
+        elif args.command == "batch":
+            from .api import batch
+
+            result = batch(args.manifest, output=args.output, db=args.db,
+                           scheduler=args.scheduler, workers=args.workers,
+                           overwrite=args.overwrite, progress=not args.quiet,
+                           command=command, say=say)
+            say(result.summary())
+            return result.exit_status
+        elif args.command == "fleet":
+            from .api import fleet
+
+            result = fleet(args.db, output=args.output, sensor=args.sensor,
+                           limits=args.limits, plot=args.plot, overwrite=args.overwrite)
+            say(result.summary())
+            say(f"wrote {printable(args.output)}"
+                + (f" and {printable(args.plot)}" if args.plot else ""))
         elif args.command == "inspect":
             from .jobs.inspect import run_inspect
 
