@@ -53,12 +53,64 @@ SEED = _ranged(int, 0, 2**32 - 1, example="1")
 # messages the CLI turns into the option's.
 
 
+def _report_option(p) -> None:
+    p.add_argument("--report", metavar="PATH.html", help="also write a self-contained HTML "
+                   "report (numbers, plots, warnings, provenance; opens offline)")
+
+
 def _history_options(p) -> None:
     p.add_argument("--unit", metavar="SERIAL", help="store this run in the history database "
                    "under the unit's serial number")
     p.add_argument("--sensor", help="sensor name stored with --unit (default: the input file)")
     p.add_argument("--db", default=DEFAULT_DB, help="history database (default noisecal.db "
                    "in the working folder)")
+
+
+def _ros_options(p, truth: bool = False) -> None:
+    """Options of a ROS bag or CSV export as the recording."""
+    p.add_argument("--topic", help="topic to read when the recording is a ROS bag (.bag, "
+                   ".mcap, .db3 or a ROS 2 bag folder)")
+    if truth:
+        p.add_argument("--truth-topic", help="truth topic: of the --truth bag, or of the "
+                       "recording's own bag when --truth is left out")
+    p.add_argument("--type", dest="msgtype", metavar="TYPE",
+                   help="message type, e.g. sensor_msgs/msg/Imu: units of a ROS CSV export; "
+                   "a bag topic of another type is refused")
+
+
+def _node_name(text: str) -> str:
+    """An argparse type: a ROS node name (checked before any work)."""
+    from .export.ros_params import check_node
+
+    try:
+        return check_node(text)
+    except InputError as exc:
+        raise argparse.ArgumentTypeError(str(exc).split(": ", 1)[1]) from None
+
+
+def _output_options(p) -> None:
+    p.add_argument("--as", dest="output_as", choices=["noisecal", "ros"], default="noisecal",
+                   help="what -o holds: the noisecal block (default) or a ROS 2 parameter "
+                   "file (message covariance arrays, REP 145 *_stddev)")
+    p.add_argument("--node", type=_node_name,
+                   help="node name of the ROS 2 parameter file (default noisecal)")
+    p.add_argument("--units", choices=["si", "customary"], default="si",
+                   help="customary: fitted numbers also in the input's units, beside SI")
+
+
+def _recording_arg(path, topic, msgtype):
+    """The recording path, with its ROS selections where any is given."""
+    if topic is None and msgtype is None:
+        return path
+    from .ingest.ros_bag import RosInput
+
+    return RosInput(path, topic, msgtype)
+
+
+def _truth_arg(args):
+    """The truth: another file, another bag's topic, or a topic of the recording's bag."""
+    path = args.truth if args.truth is not None else args.recording
+    return _recording_arg(path, args.truth_topic, None)
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -83,11 +135,15 @@ def _parser() -> argparse.ArgumentParser:
     s.add_argument("--quiet", action="store_true", help="no progress bar")
     s.add_argument("--no-cache", action="store_true",
                    help="do not read or write the binary cache of validated recordings")
+    _ros_options(s)
+    _output_options(s)
+    _report_option(s)
     _history_options(s)
 
     m = sub.add_parser("motion", help="measurement noise of a sensor against ground truth")
     m.add_argument("recording", help="sensor recording (CSV, Parquet or .npz), time first")
-    m.add_argument("--truth", required=True, help="truth recording, same formats")
+    m.add_argument("--truth", help="truth recording, same formats (a bag's truth topic: "
+                   "--truth-topic; --truth left out means the recording's own bag)")
     m.add_argument("--map", help="measurement map YAML (default: same channel names)")
     m.add_argument("--odometry", metavar="CONFIG",
                    help="the recording is wheel odometry (encoder ticks or increments) "
@@ -105,6 +161,9 @@ def _parser() -> argparse.ArgumentParser:
     m.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     m.add_argument("--quiet", action="store_true", help="no progress bar")
     m.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
+    _ros_options(m, truth=True)
+    _output_options(m)
+    _report_option(m)
     _history_options(m)
 
     c = sub.add_parser("targets", help="camera measurement noise from surveyed targets")
@@ -123,6 +182,7 @@ def _parser() -> argparse.ArgumentParser:
                    help="probability of the chi-square gate (default 0.997)")
     c.add_argument("--seed", type=SEED, default=1, help="seed (robust fit, Monte Carlo)")
     c.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    _report_option(c)
     _history_options(c)
 
     r = sub.add_parser("recheck", help="compare a new recording with a baseline block; exit "
@@ -156,6 +216,7 @@ def _parser() -> argparse.ArgumentParser:
                    "recorded in the output, stated values compared")
     r.add_argument("--overwrite", action="store_true", help="replace existing outputs")
     r.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
+    _report_option(r)
     _history_options(r)
 
     h = sub.add_parser("history", help="a unit's stored runs: table, plot, CSV")
@@ -195,9 +256,17 @@ def _parser() -> argparse.ArgumentParser:
                    "(SI)")
     f.add_argument("--overwrite", action="store_true", help="replace existing outputs")
 
+    u = sub.add_parser("report", help="a unit's history as one self-contained HTML report")
+    u.add_argument("unit", metavar="SERIAL")
+    u.add_argument("--db", default=DEFAULT_DB, help="history database (default noisecal.db)")
+    u.add_argument("-o", "--output", required=True, metavar="PATH.html",
+                   help="the report to write")
+    u.add_argument("--overwrite", action="store_true", help="replace an existing report")
+
     i = sub.add_parser("inspect", help="describe a recording and the problems found")
     i.add_argument("recording")
     i.add_argument("--repair", choices=["sort", "drop"])
+    _ros_options(i)
     i.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
 
     d = sub.add_parser("demo", help="run the committed demo recording into reports/demo")
@@ -326,11 +395,16 @@ def _run(args, command: str, recorder) -> int:
 
             channels = [c.strip() for c in args.channels.split(",")] if args.channels else None
             record = recorder("static")
-            result = run_static(args.recording, args.output, args.plot, args.dt, channels,
+            result = run_static(_recording_arg(args.recording, args.topic, args.msgtype),
+                                args.output, args.plot, args.dt, channels,
                                 args.repair, args.overwrite, args.reps, args.seed,
                                 args.quiet, command, use_cache=not args.no_cache,
-                                record=record)
+                                record=record, report=args.report, output_as=args.output_as,
+                                node=args.node, units=args.units)
             say(summary(result))
+        elif args.command == "motion" and args.truth is None and args.truth_topic is None:
+            raise InputError("motion needs the truth: --truth FILE, or --truth-topic TOPIC "
+                             "of the recording's bag")
         elif args.command == "motion" and args.odometry:
             from .jobs.odometry import run_odometry, summary as odometry_summary
 
@@ -338,18 +412,25 @@ def _run(args, command: str, recorder) -> int:
                 raise InputError("--odometry takes the pose channels from its config; "
                                  "leave out --map and --covariate")
             record = recorder("motion --odometry")
-            result = run_odometry(args.recording, args.truth, args.odometry, args.output,
+            if args.output_as != "noisecal" or args.units != "si" or args.node:
+                raise InputError("--as, --node and --units apply to static and motion; "
+                                 "leave them out with --odometry")
+            result = run_odometry(_recording_arg(args.recording, args.topic, args.msgtype),
+                                  _truth_arg(args), args.odometry, args.output,
                                   args.plot, args.max_offset, args.overwrite, args.quiet,
-                                  command, use_cache=not args.no_cache, record=record)
+                                  command, use_cache=not args.no_cache, record=record,
+                                  report=args.report)
             say(odometry_summary(result))
         elif args.command == "motion":
             from .jobs.motion import run_motion, summary as motion_summary
 
             record = recorder("motion")
-            result = run_motion(args.recording, args.truth, args.output, args.map, args.plot,
+            result = run_motion(_recording_arg(args.recording, args.topic, args.msgtype),
+                                _truth_arg(args), args.output, args.map, args.plot,
                                 args.covariate, args.gate, args.max_offset, args.overwrite,
                                 args.seed, args.quiet, command, use_cache=not args.no_cache,
-                                record=record)
+                                record=record, report=args.report, output_as=args.output_as,
+                                node=args.node, units=args.units)
             say(motion_summary(result))
         elif args.command == "targets":
             from .jobs.targets import run_targets, summary as targets_summary
@@ -357,7 +438,7 @@ def _run(args, command: str, recorder) -> int:
             record = recorder("targets")
             result = run_targets(args.detections, args.survey, args.camera, args.output,
                                  args.plot, args.ground, args.gate, args.overwrite, args.seed,
-                                 command, args.poses, record=record)
+                                 command, args.poses, record=record, report=args.report)
             say(targets_summary(result))
         elif args.command == "recheck":
             from .jobs.recheck import run_recheck, summary as recheck_summary
@@ -375,7 +456,8 @@ def _run(args, command: str, recorder) -> int:
                                  use_cache=not args.no_cache, command=command,
                                  alpha=args.alpha, files=files, poses=args.poses,
                                  accept_edited=args.accept_edited,
-                                 verdict_on=args.verdict_on, at=at, record=record)
+                                 verdict_on=args.verdict_on, at=at, record=record,
+                                 report=args.report)
             say(recheck_summary(result))
             _done(say, args, record)
             return result.exit_status
@@ -398,10 +480,16 @@ def _run(args, command: str, recorder) -> int:
             say(result.summary())
             say(f"wrote {printable(args.output)}"
                 + (f" and {printable(args.plot)}" if args.plot else ""))
+        elif args.command == "report":
+            from .jobs.report import run_unit_report
+
+            run_unit_report(args.db, args.unit, args.output, args.overwrite)
+            say(f"wrote {printable(args.output)}")
         elif args.command == "inspect":
             from .jobs.inspect import run_inspect
 
-            _say(run_inspect(args.recording, args.repair, use_cache=not args.no_cache))
+            _say(run_inspect(_recording_arg(args.recording, args.topic, args.msgtype),
+                             args.repair, use_cache=not args.no_cache))
         elif args.command == "demo":
             from .jobs.demo import run_demo
 
@@ -421,6 +509,8 @@ def _done(say, args, record) -> None:
     """The closing lines: what was written and where the run was stored."""
     if args.output and args.output != STDOUT:
         say(f"wrote {printable(args.output)}")
+    if getattr(args, "report", None):
+        say(f"wrote {printable(args.report)}")
     if record is not None and record.run_id is not None:
         say(f"stored as run {record.run_id} of unit {printable(args.unit)} in "
             f"{printable(args.db)}")

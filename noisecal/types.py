@@ -27,6 +27,10 @@ class Source:
         ``"csv"``, ``"parquet"`` or ``"npz"``.
     repairs : tuple of str
         Repairs applied at ingest (e.g. ``"sorted 3 rows"``); empty if none.
+    notes : tuple of str
+        What the reader found worth stating (a bag's topic, which time it used,
+        the record-minus-stamp delay, the driver's covariance arrays; the units a
+        CSV export's message type gave); empty if none.
     """
 
     path: str
@@ -34,6 +38,7 @@ class Source:
     size_bytes: int
     format: str
     repairs: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)

@@ -232,13 +232,13 @@ def test_output_to_stdout(tmp_path, run_cli):
     _rec(tmp_path)
     status, out, err = _cli(tmp_path, *STATIC, "-o", "-")
     assert status == 0, err
-    assert yaml.safe_load(out)["layout"] == "noisecal.static/1"
+    assert yaml.safe_load(out)["layout"] == "noisecal.static/2"
     assert "white_noise" in err
     assert _files(tmp_path) == {"r.csv"}
     status, out, err = run_cli(*STATIC[:1], tmp_path / "r.csv", *STATIC[2:], "-o", "-",
                                "--plot", tmp_path / "p.png")
     assert status == 0 and (tmp_path / "p.png").stat().st_size > 1000, err
-    assert yaml.safe_load(out)["layout"] == "noisecal.static/1"
+    assert yaml.safe_load(out)["layout"] == "noisecal.static/2"
     assert _files(tmp_path) == {"r.csv", "p.png"}
 
 

@@ -2,6 +2,12 @@
 
 Numbers are SI, rounded to six significant digits. The layout is noisecal's
 own; its version is in ``layout``.
+
+Layout versions: ``noisecal.static/2`` names the statistic of each Allan point
+table in words (``allan_points.kind: overlapping_allan_deviation``, see
+:data:`KIND_NAMES`) where ``noisecal.static/1`` wrote a short code (``oadev``);
+nothing else changed. A re-check reads both: :func:`migrate` turns a version 1
+block into version 2 after its checksum has been verified.
 """
 
 from __future__ import annotations
@@ -17,7 +23,39 @@ from ..ingest.yaml_file import GuardedLoader, quote_for_loader
 from ..types import Estimate, FilterBlock, Recording
 from ..units import derived_unit
 
-LAYOUT = "noisecal.static/1"
+LAYOUT = "noisecal.static/2"
+LAYOUTS_READ = ("noisecal.static/1", LAYOUT)
+"""Static layouts a re-check accepts (older ones through :func:`migrate`)."""
+
+KIND_NAMES = {
+    "adev": "allan_deviation",
+    "oadev": "overlapping_allan_deviation",
+    "mdev": "modified_allan_deviation",
+    "hdev": "hadamard_deviation",
+    "ohdev": "overlapping_hadamard_deviation",
+    "totdev": "total_deviation",
+}
+"""The statistic of an Allan point table, spelled out (the analysis keeps short codes)."""
+
+
+def migrate(sections: dict) -> dict:
+    """A static block of an older layout as the current one (a copy; others unchanged).
+
+    ``noisecal.static/1`` → ``/2``: ``allan_points.kind`` codes become their names.
+    Call it after the checksum is verified: the checksum covers the block as written.
+    """
+    if not isinstance(sections, dict) or sections.get("layout") != "noisecal.static/1":
+        return sections
+    out = {**sections, "layout": LAYOUT}
+    chans = sections.get("channels")
+    if isinstance(chans, dict):
+        out["channels"] = {}
+        for ch, entry in chans.items():
+            pts = entry.get("allan_points") if isinstance(entry, dict) else None
+            if isinstance(pts, dict) and pts.get("kind") in KIND_NAMES:
+                entry = {**entry, "allan_points": {**pts, "kind": KIND_NAMES[pts["kind"]]}}
+            out["channels"][ch] = entry
+    return out
 
 
 def num(x) -> float | None:
@@ -89,7 +127,7 @@ def estimate_from(d: dict, unit: str | None = None) -> Estimate:
 def curve_table(curve) -> dict:
     """An Allan curve as columns: tau, deviation, interval, EDF, noise type, terms."""
     return {
-        "kind": curve.kind,
+        "kind": KIND_NAMES.get(curve.kind, curve.kind),
         "tau_s": [num(v) for v in curve.taus],
         "deviation": [num(v) for v in curve.dev],
         "ci95_low": [num(v) for v in curve.lower],
@@ -101,8 +139,11 @@ def curve_table(curve) -> dict:
 
 
 def recording_section(rec: Recording) -> dict:
-    """Facts of the recording: rate, jitter, gaps, saturation."""
+    """Facts of the recording: rate, jitter, gaps, saturation (and the reader's notes:
+    a bag's topic, the time used, the record-minus-stamp delay)."""
+    notes = {"notes": list(rec.source.notes)} if rec.source.notes else {}
     return {
+        **notes,
         "samples": rec.n,
         "channels": list(rec.channels),
         "duration_s": num(rec.duration),
@@ -139,8 +180,137 @@ def filter_section(fb: FilterBlock) -> dict:
         "gauss_markov": {"phi": vec(fb.gm_phi), "q": vec(fb.gm_q),
                          "q_range95": {"low": vec(fb.gm_q_low), "high": vec(fb.gm_q_high)}},
         "continuous": {"white_psd": vec(fb.white_psd), "bias_rw_psd": vec(fb.bias_rw_psd)},
+        **_ros_arrays(fb.order, fb.units, fb.R),
         "notes": list(fb.notes),
     }
+
+
+def _ros_arrays(order, units, R) -> dict:
+    """``ros_covariance``: R in the row-major arrays of the ROS messages, where it fits one."""
+    from .ros_params import covariance_arrays
+
+    arrays, _ = covariance_arrays(order, units, R)
+    if not arrays:
+        return {}
+    return {"ros_covariance": {k: [num(v) for v in a] for k, a in arrays.items()}}
+
+
+OUTPUTS = ("noisecal", "ros")
+UNITS = ("si", "customary")
+
+
+def _in_unit(d: dict, si_unit: str, unit: str) -> dict | None:
+    """An estimate mapping's numbers converted from ``si_unit`` to ``unit`` (None if not)."""
+    from ..units import convert
+
+    try:
+        scale = convert(1.0, si_unit, unit)
+        if convert(0.0, si_unit, unit) != 0.0 or not np.isfinite(scale):
+            return None  # affine (degC): a noise level is not a temperature
+    except Exception:  # a unit pint cannot relate: no customary copy, SI stays
+        return None
+    out = {}
+    if d.get("value") is not None:
+        out["value"] = float(d["value"]) * scale
+        out["ci95"] = [float(v) * scale for v in d["ci95"]]
+    elif d.get("upper_bound") is not None:
+        out["upper_bound"] = float(d["upper_bound"]) * scale
+    else:
+        return None
+    out["unit"] = unit
+    return out
+
+
+def with_input_units(sections: dict, recordings) -> dict:
+    """A copy of a static or motion block with each fitted number also in the input's units.
+
+    Each channel's term (static) or ``sigma``/``bias`` (motion) gets an
+    ``in_input_units`` mapping beside its SI one, e.g. a ``[deg/s]`` channel's
+    white noise in ``deg/s/Hz^0.5``. SI stays the value a reader should use.
+
+    Parameters
+    ----------
+    sections : dict
+        The block's sections.
+    recordings : sequence of Recording
+        The recordings whose units the channels were read in (sensor first).
+    """
+    from ..fit.simulate import TERM_NAMES
+
+    src, si = {}, {}
+    for rec in reversed(list(recordings)):
+        src.update(zip(rec.channels, rec.source_units))
+        si.update(zip(rec.channels, rec.units))
+    out = dict(sections)
+    if isinstance(sections.get("channels"), dict):
+        chans = {}
+        for ch, entry in sections["channels"].items():
+            entry = dict(entry)
+            if ch in src:
+                for term in TERM_NAMES:
+                    d = entry.get(term)
+                    if isinstance(d, dict) and d.get("unit"):
+                        conv = _in_unit(d, d["unit"], derived_unit(src[ch], term))
+                        if conv is not None:
+                            entry[term] = {**d, "in_input_units": conv}
+            chans[ch] = entry
+        out["channels"] = chans
+    m = sections.get("measurement")
+    if isinstance(m, dict):
+        m = dict(m)
+        for key in ("sigma", "bias"):
+            if isinstance(m.get(key), dict):
+                m[key] = {ch: ({**d, "in_input_units": conv} if ch in src and (
+                    conv := _in_unit(d, d.get("unit", si.get(ch)), src[ch])) else d)
+                    for ch, d in m[key].items()}
+        out["measurement"] = m
+    return out
+
+
+def render_output(result, out=None, output_as: str = "noisecal", node: str | None = None,
+                  units: str = "si") -> str:
+    """The text a job writes at ``-o``: its noisecal block, or a ROS 2 parameter file.
+
+    Parameters
+    ----------
+    result : StaticResult or MotionResult
+    out : path, optional
+        Where it goes (side files in the block are made relative to its folder).
+    output_as : {"noisecal", "ros"}
+        ``ros``: the ROS 2 parameter file of :mod:`noisecal.export.ros_params`.
+    node : str, optional
+        Node name of the parameter file (default ``noisecal``).
+    units : {"si", "customary"}
+        ``customary``: numbers also in the input's units (noisecal block only).
+    """
+    from ..errors import InputError
+
+    if output_as not in OUTPUTS:
+        raise InputError(f"--as {output_as}: give one of {', '.join(OUTPUTS)}")
+    if units not in UNITS:
+        raise InputError(f"--units {units}: give one of {', '.join(UNITS)}")
+    if output_as == "ros":
+        from .ros_params import check_node, render_result
+
+        if units != "si":
+            raise InputError("--units customary: a ROS parameter file is SI (REP 103); "
+                             "leave --units out with --as ros")
+        return render_result(result, check_node(node or "noisecal"))
+    if node is not None:
+        raise InputError(f"--node {node}: applies to --as ros; leave it out")
+    if units == "customary":
+        recs = [getattr(result, k) for k in ("recording", "sensor", "truth")
+                if hasattr(result, k)]
+        return result._render(out) if not recs else _render_sections(
+            result, with_input_units(result.sections, recs), out)
+    return result._render(out)
+
+
+def _render_sections(result, sections: dict, out) -> str:
+    """``result._render`` on other sections (the job's own title and comments)."""
+    from dataclasses import replace
+
+    return replace(result, sections=sections)._render(out)
 
 
 _COMMENTS = {
@@ -152,6 +322,7 @@ _COMMENTS = {
     "filter": ("Discrete-time matrices for step dt over 'order' (SI, diagonal).\n"
                "R = N^2/dt (channel as a measurement); Q_input = N^2*dt (channel\n"
                "integrated in the prediction); Q_bias = K^2*dt (bias random-walk state).\n"
+               "ros_covariance: R as the ROS messages' row-major arrays (REP 103).\n"
                "A starting point for tuning: confirm on the real system."),
 }
 

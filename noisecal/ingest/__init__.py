@@ -20,6 +20,8 @@ from . import cache
 from .columnar import NpzSource, ParquetSource
 from .csv_reader import CsvSource
 from .header import parse_header
+from .ros_bag import BagSource, RosInput, bag_digest, is_bag
+from .ros_csv import RosCsvSource, is_ros_export
 from .sink import NpySink, release_free_memory
 from .validate import REPAIRS, read_into_memory, stream, summarize
 
@@ -28,7 +30,7 @@ SOURCES = {".csv": CsvSource, ".txt": CsvSource, ".parquet": ParquetSource,
 CACHED = ("csv", "parquet")
 
 
-def _open(path: Path):
+def _open(path: Path, msgtype: str | None = None):
     if not path.exists():
         raise InputError(f"{path}: no such file; check the path")
     if not path.is_file():
@@ -36,8 +38,14 @@ def _open(path: Path):
     kind = SOURCES.get(path.suffix.lower())
     if kind is None:
         raise InputError(f"{path}: unknown file type {path.suffix!r}; give a .csv, "
-                         ".parquet or .npz recording")
+                         ".parquet or .npz recording, or a ROS bag (.bag, .mcap, .db3, or a "
+                         "ROS 2 bag folder)")
     try:
+        if kind is CsvSource and is_ros_export(path):
+            return RosCsvSource(path, msgtype)
+        if msgtype is not None:
+            raise InputError(f"{path}: --type applies to ROS bags and ROS CSV exports; this "
+                             "file's header names its units, leave --type out")
         return kind(path)
     except PermissionError:
         raise InputError(f"{path}: permission denied; make the file readable") from None
@@ -45,7 +53,7 @@ def _open(path: Path):
 
 def _recording(path, meta: dict, time, cols) -> Recording:
     src = Source(str(path), meta["sha256"], meta["size_bytes"], meta["format"],
-                 tuple(meta["repairs"]))
+                 tuple(meta["repairs"]), tuple(meta.get("notes", ())))
     return Recording(
         time=time, start_time=meta["start_time"], columns=tuple(cols),
         channels=tuple(meta["names"]), units=tuple(meta["units"]),
@@ -73,9 +81,12 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
 
     Parameters
     ----------
-    path : str or Path
+    path : str, Path or RosInput
         A ``.csv``, ``.parquet``/``.pq`` or ``.npz`` file whose column names are
-        ``name [unit]`` cells, time first (``time [s]`` or ``time [ns]``).
+        ``name [unit]`` cells, time first (``time [s]`` or ``time [ns]``); a CSV
+        exported from a ROS topic (:mod:`noisecal.ingest.ros_csv`); or a ROS bag
+        (ROS 1 ``.bag``, ROS 2 folder, ``.mcap`` or ``.db3``) with its topic given
+        by a :class:`~noisecal.ingest.ros_bag.RosInput`.
     repair : {None, "sort", "drop"}
         Repair for timestamps that are not strictly increasing.
     use_cache : bool
@@ -95,10 +106,16 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
         One line naming what is wrong, where, and what to do; also when the
         file changed while it was being read (nothing is cached then).
     """
+    selection = path if isinstance(path, RosInput) else RosInput(str(path))
     path = Path(path)
     if repair is not None and repair not in REPAIRS:
         raise InputError(f"--repair {repair!r} is not known; use one of {', '.join(REPAIRS)}")
-    source = _open(path)
+    if path.exists() and is_bag(path):
+        return _read_bag(path, selection, repair, progress)
+    if selection.topic is not None:
+        raise InputError(f"{path}: --topic applies to ROS bags (.bag, .mcap, .db3 or a ROS 2 "
+                         "bag folder); leave it out for this file")
+    source = _open(path, selection.msgtype)
     state = _state(path)
     size = state[1]
     tick = (lambda stage: (lambda done: progress(stage, done, size))) if progress else (lambda s: None)
@@ -139,6 +156,21 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
     _unchanged(path, state)
     repairs = (f"--repair {repair}: {note}",) if note else ()
     meta = _meta(source, header, digest, size, start, time, cols, repairs)
+    meta["notes"] = list(getattr(source, "notes", ()))
+    return _recording(path, meta, time, cols)
+
+
+def _read_bag(path: Path, selection: RosInput, repair, progress) -> Recording:
+    """One topic of a ROS bag as a Recording (decoded in memory; not cached)."""
+    source = _readable(lambda p: BagSource(p, selection.topic, selection.msgtype), path)
+    header = parse_header(source.headers, f"{path}, topic {source.topic}")
+    start, time, cols, note = read_into_memory(source, header, repair, None)
+    digest, size = _readable(bag_digest, path)
+    if progress:
+        progress("read", size, size)
+    repairs = (f"--repair {repair}: {note}",) if note else ()
+    meta = _meta(source, header, digest, size, start, time, cols, repairs)
+    meta["notes"] = list(source.notes)
     return _recording(path, meta, time, cols)
 
 

@@ -33,8 +33,40 @@ def _numeric(path: Path, name: str, array: np.ndarray) -> np.ndarray:
     return array
 
 
+def _timestamp_order(path: Path, schema) -> tuple[list, list, int | None]:
+    """Header cells and column order with a timestamp column (pandas' datetimes) as the time.
+
+    A column of Arrow type ``timestamp`` is the time whatever its name or place
+    (pandas writes a datetime index last): it becomes ``time [ns]`` and goes
+    first. Returns the cells, the column order and the timestamp column's
+    position in the file (None when there is none).
+    """
+    import pyarrow.types as pt
+
+    names = list(schema.names)
+    stamps = [i for i, f in enumerate(schema) if pt.is_timestamp(f.type)]
+    if not stamps:
+        return names, list(range(len(names))), None
+    if len(stamps) > 1:
+        raise InputError(f"{path}: {len(stamps)} timestamp columns "
+                         f"({', '.join(repr(names[i]) for i in stamps)}); keep one, the "
+                         "sample time")
+    t = stamps[0]
+    others = [i for i in range(len(names)) if i != t]
+    clash = [names[i] for i in others if names[i].split("[")[0].strip().lower() == "time"]
+    if clash:
+        raise InputError(f"{path}: a timestamp column {names[t]!r} and a time column "
+                         f"{clash[0]!r}; keep one")
+    return ["time [ns]"] + [names[i] for i in others], [t] + others, t
+
+
 class ParquetSource:
-    """A Parquet recording, read in record batches of ``BATCH_ROWS`` rows."""
+    """A Parquet recording, read in record batches of ``BATCH_ROWS`` rows.
+
+    A column of Arrow type ``timestamp`` (a pandas datetime column or index) is
+    read as the time, in exact integer nanoseconds since the epoch (UTC for a
+    zoned one).
+    """
 
     format = "parquet"
     locate = staticmethod(_row_phrase)
@@ -48,29 +80,38 @@ class ParquetSource:
             # No pre-buffering: it decodes whole row groups ahead (measured: 2 GB
             # held for a day at 400 Hz, against 0.2 GB without).
             self._file = pq.ParquetFile(path, pre_buffer=False, buffer_size=1 << 22)
-            self.headers = list(self._file.schema_arrow.names)
+            schema = self._file.schema_arrow
         except Exception:  # pyarrow raises ArrowInvalid, OSError, … for a bad file
             raise InputError(f"{path}: not a readable Parquet file; check that the file is "
                              "complete and really Parquet") from None
+        self.headers, self._order, self._stamp = _timestamp_order(path, schema)
         if len(self.headers) < 2:
             raise InputError(f"{path}: {len(self.headers)} column(s); a recording needs a "
                              "time column and at least one channel")
-        for field in self._file.schema_arrow:
+        for i, field in enumerate(schema):
+            if i == self._stamp:
+                continue
             if not (pt.is_integer(field.type) or pt.is_floating(field.type)):
                 raise InputError(f"{path}: column {field.name!r} is of type {field.type}, "
                                  "not numeric; store numbers")
 
     def blocks(self, time_integer: bool, progress=None):
+        import pyarrow as pa
+
         rows = 0
         try:
             batches = self._file.iter_batches(batch_size=BATCH_ROWS)
             for batch in batches:
-                for name, col in zip(self.headers, batch.columns):
+                columns = [batch.column(i) for i in self._order]
+                for name, col in zip(self.headers, columns):
                     if col.null_count:
                         bad = int(np.flatnonzero(col.is_null().to_numpy(zero_copy_only=False))[0])
                         raise InputError(f"{self.path}, {_row_phrase(rows + bad)}, column "
                                          f"{name!r}: missing value; fill it or remove the row")
-                arrays = [c.to_numpy(zero_copy_only=False) for c in batch.columns]
+                if self._stamp is not None:
+                    # Through timestamp[ns] to int64: the epoch nanoseconds, exact.
+                    columns[0] = columns[0].cast(pa.timestamp("ns")).cast(pa.int64())
+                arrays = [c.to_numpy(zero_copy_only=False) for c in columns]
                 rows += batch.num_rows
                 if progress:
                     progress(rows)

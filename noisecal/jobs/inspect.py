@@ -54,6 +54,7 @@ def describe(rec: Recording) -> str:
     if rec.auxiliary:
         lines.append(f"  auxiliary {', '.join(rec.auxiliary)}: kept, not a quantity the noise "
                      "fit analyses; left out of the static fit unless named with --channels")
+    lines.extend(f"  note      {n}" for n in rec.source.notes)
     for g in rec.gaps:
         lines.append(f"  gap at {g.start_s:.6g} s, {g.length_s:.6g} s long ({g.missing} samples)")
     found = problems(rec)

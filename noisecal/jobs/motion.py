@@ -283,7 +283,9 @@ def run_motion(sensor_path: str, truth_path: str, out: str, map_path: str | None
                plot: str | None = None, covariate: str | None = None,
                gate_probability: float = GATE_PROBABILITY, max_offset: float = 1.0,
                overwrite: bool = False, seed: int = 1, quiet: bool = False,
-               command: str = "", use_cache: bool = True, record=None) -> MotionResult:
+               command: str = "", use_cache: bool = True, record=None,
+               report: str | None = None, output_as: str = "noisecal",
+               node: str | None = None, units: str = "si") -> MotionResult:
     """Read, analyse and write the YAML block and the plot.
 
     Parameters
@@ -302,10 +304,22 @@ def run_motion(sensor_path: str, truth_path: str, out: str, map_path: str | None
         See :func:`analyse`.
     record : noisecal.jobs.history.Recorder, optional
         The history the run is stored in, together with its files.
+    report : str, optional
+        HTML report path (self-contained), written together with the other outputs.
+    output_as : {"noisecal", "ros"}
+        What ``out`` holds: the noisecal block, or a ROS 2 parameter file
+        (:mod:`noisecal.export.ros_params`).
+    node : str, optional
+        Node name of the ROS parameter file.
+    units : {"si", "customary"}
+        ``customary``: fitted numbers also in the input's units.
     """
+    from .static import _report_path
+
     inputs = [sensor_path, truth_path] + ([map_path] if map_path else [])
     out_path, plot_path = output_paths(out, plot, inputs, overwrite,
                                        getattr(record, "paths", ()))
+    report_path = _report_path(report, inputs, overwrite, record, out_path, plot_path)
     bars = StageBars(quiet)
     try:
         sensor = read_recording(sensor_path, use_cache=use_cache, progress=bars)
@@ -318,7 +332,12 @@ def run_motion(sensor_path: str, truth_path: str, out: str, map_path: str | None
     with Staged(overwrite) as staged:
         if plot_path is not None:
             motion_figure(res, staged.path(plot_path))
-        staged.text(out_path, res._render(None if out_path == STDOUT else out_path))
+        if report_path is not None:
+            from ..export.html import render_job
+
+            staged.text(report_path, render_job(res))
+        staged.text(out_path, yaml_block.render_output(
+            res, None if out_path == STDOUT else out_path, output_as, node, units))
         staged.commit(record(res) if record else None)
     return res
 

@@ -34,8 +34,10 @@ from ..ingest.yaml_file import read_yaml
 
 LAYOUT = "noisecal.recheck/1"
 EXIT = {"consistent": 0, "changed": 1, "inconclusive": 3}
-JOBS = {"noisecal.static/1": "static", "noisecal.motion/1": "motion",
-        "noisecal.odometry/1": "odometry", "noisecal.targets/1": "targets"}
+JOBS = {"noisecal.static/1": "static", yaml_block.LAYOUT: "static",
+        "noisecal.motion/1": "motion", "noisecal.odometry/1": "odometry",
+        "noisecal.targets/1": "targets"}
+"""Layouts a re-check reads; static/1 is migrated to the current layout on load."""
 SIDE_OPTIONS = {"map": "--map", "config": "--config", "camera": "--camera",
                 "survey": "--survey"}
 """Provenance side file → the option that overrides it."""
@@ -57,6 +59,8 @@ class RecheckResult:
         The new recording's own YAML content.
     sections : dict
         The re-check's YAML content.
+    baseline : dict or None
+        The baseline block as the re-check read it (for the report's side-by-side plot).
     """
 
     job: str
@@ -65,6 +69,18 @@ class RecheckResult:
     comparisons: list
     new_sections: dict
     sections: dict
+    baseline: dict | None = None
+
+    def summary(self) -> str:
+        """Plain-language summary (see :func:`summary`)."""
+        return summary(self)
+
+    def report(self, path, overwrite: bool = False) -> Path:
+        """Write the self-contained HTML report of this re-check (see
+        :func:`noisecal.export.html.write_report`)."""
+        from ..export.html import write_report
+
+        return write_report(self, path, overwrite)
 
     @property
     def exit_status(self) -> int:
@@ -138,7 +154,7 @@ def check_baseline(base: dict, where: str) -> None:
     """Refuse, in one line, a baseline missing or mistyping anything a re-check reads."""
     _get(base, "provenance", where)
     layout = base["layout"]
-    if layout == "noisecal.static/1":
+    if layout == yaml_block.LAYOUT:
         chans = _get(base, "channels", where)
         if not chans:
             raise _damaged(where, "'channels' is empty")
@@ -244,6 +260,8 @@ def load_baseline(path: str, accept_edited: bool = False):
                 "does not match its checksum (edited by hand or damaged)")
         raise InputError(f"{path}: the baseline {what}; re-run the job that wrote it, or "
                          f"give {ACCEPT} if the edit is intended")
+    # An older static layout is read as the current one (yaml_block.migrate).
+    base = yaml_block.migrate(base)
     check_baseline(base, str(path))
     return base, state
 
@@ -273,7 +291,7 @@ def estimates_of(sections: dict) -> list:
     """
     layout = sections.get("layout")
     out = []
-    if layout == "noisecal.static/1":
+    if layout == yaml_block.LAYOUT:
         for ch, entry in sections["channels"].items():
             for term in TERM_NAMES:
                 out.append((ch, term, entry[term], {}))
@@ -329,7 +347,7 @@ def _f_dof(base: dict, new: dict, ch: str, name: str, be: dict, ne: dict):
     """
     if "value" not in be or "value" not in ne:
         return None
-    if base["layout"] == "noisecal.static/1":
+    if base["layout"] == yaml_block.LAYOUT:
         b, n = base["channels"][ch], new["channels"][ch]
         at_tau0 = name == "white_noise" or not be.get("tau_s")
         # White noise is tested at the first tau the fit used: below it a sensor's
@@ -420,7 +438,7 @@ def comparison_rows(base: dict, new: dict, at: list | None = None,
     """
     found = {(ch, name): e for ch, name, e, _ in estimates_of(new)}
     length_ratio = None
-    if base["layout"] == "noisecal.static/1":
+    if base["layout"] == yaml_block.LAYOUT:
         length_ratio = (float(base["recording"]["duration_s"]) /
                         float(new["recording"]["duration_s"]))
     # Where either run resolved a law's slope b, the noise depends on the covariate:
@@ -463,7 +481,7 @@ def settings_of(base: dict) -> dict:
     prov = base["provenance"]
     st = prov.get("settings") if isinstance(prov.get("settings"), dict) else {}
     layout = base["layout"]
-    if layout == "noisecal.static/1":
+    if layout == yaml_block.LAYOUT:
         return {"channels": list(st.get("channels") or base["channels"]),
                 "dt": float(st.get("dt") or base["filter"]["dt"]),
                 "reps": int(prov.get("bootstrap_replicates", 200)),
@@ -677,7 +695,7 @@ def recheck(baseline: str, recording: str, truth: str | None = None,
     comps = [_with_unresolved_more(c, gate) for c in comps]
     sections = _sections(job, baseline, recording, base, new, comps, overall, spec, tolerance,
                          command, alpha, state, verdict_on, at)
-    return RecheckResult(job, overall, spec, comps, new, sections)
+    return RecheckResult(job, overall, spec, comps, new, sections, base)
 
 
 def _with_unresolved_more(c, gate):
@@ -815,6 +833,7 @@ def run_recheck(baseline: str, recording: str, out: str | None = None,
     written when the re-check fails.
     """
     record = options.pop("record", None)
+    report = options.pop("report", None)
     files = options.get("files") or {}
     inputs = ([baseline, recording] + ([truth] if truth else []) + ([limits] if limits else [])
               + [p for p in files.values() if p] + ([options["poses"]]
@@ -834,6 +853,9 @@ def run_recheck(baseline: str, recording: str, out: str | None = None,
                                            getattr(record, "paths", ()))
         if out_path == STDOUT:
             plot_path = None
+    from .static import _report_path
+
+    report_path = _report_path(report, inputs, overwrite, record, out_path, plot_path)
     res = recheck(baseline, recording, truth, limits, tolerance, use_cache, command, alpha,
                   **options)
     with Staged(overwrite) as staged:
@@ -848,5 +870,9 @@ def run_recheck(baseline: str, recording: str, out: str | None = None,
                 {"verdict": "consistent | changed | inconclusive (exit status 0 | 1 | 3)",
                  "undecided": "Gated parameters this recording could not decide, and what "
                  "more data each needs."}))
+        if report_path is not None:
+            from ..export.html import render_job
+
+            staged.text(report_path, render_job(res))
         staged.commit(record(res) if record else None)
     return res

@@ -434,7 +434,8 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
                channels: list[str] | None = None, repair: str | None = None,
                overwrite: bool = False, reps: int = DEFAULT_REPS, seed: int = DEFAULT_SEED,
                quiet: bool = False, command: str = "", use_cache: bool = True,
-               record=None) -> StaticResult:
+               record=None, report: str | None = None, output_as: str = "noisecal",
+               node: str | None = None, units: str = "si") -> StaticResult:
     """Read, characterise and write the YAML block and the plot.
 
     Parameters
@@ -455,6 +456,15 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
         Use the binary cache of validated recordings.
     record : noisecal.jobs.history.Recorder, optional
         The history the run is stored in, together with its files.
+    report : str, optional
+        HTML report path (self-contained), written together with the other outputs.
+    output_as : {"noisecal", "ros"}
+        What ``out`` holds: the noisecal block, or a ROS 2 parameter file
+        (:mod:`noisecal.export.ros_params`).
+    node : str, optional
+        Node name of the ROS parameter file.
+    units : {"si", "customary"}
+        ``customary``: fitted numbers also in the input's units.
 
     Returns
     -------
@@ -462,6 +472,7 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
     """
     out_path, plot_path = output_paths(out, plot, [path], overwrite,
                                        getattr(record, "paths", ()))
+    report_path = _report_path(report, [path], overwrite, record, out_path, plot_path)
     bars = StageBars(quiet)
     try:
         rec = read_recording(path, repair=repair, use_cache=use_cache, progress=bars)
@@ -476,6 +487,21 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
             allan_figure(result.models, result.dense, result.hadamard, staged.path(plot_path),
                          f"{Path(path).name} — overlapping Allan deviation, 95 % intervals, "
                          "fitted terms")
-        staged.text(out_path, result._render(None if out_path == STDOUT else out_path))
+        if report_path is not None:
+            from ..export.html import render_job
+
+            staged.text(report_path, render_job(result))
+        staged.text(out_path, yaml_block.render_output(
+            result, None if out_path == STDOUT else out_path, output_as, node, units))
         staged.commit(record(result) if record else None)
     return result
+
+
+def _report_path(report, inputs, overwrite, record, *outputs):
+    """The ``--report`` path checked before any work (None without one)."""
+    if report is None:
+        return None
+    from ..export.html import check_report_path
+
+    return check_report_path(report, list(inputs) + list(getattr(record, "paths", ())),
+                             overwrite, outputs)
