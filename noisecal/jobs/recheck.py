@@ -249,7 +249,7 @@ def load_baseline(path: str, accept_edited: bool = False):
         known = [k for k in JOBS if k.rsplit("/", 1)[0] == family]
         if known:
             raise InputError(f"{path}: layout {layout!r} is another version than this noisecal "
-                             f"reads ({known[0]}); re-run the baseline with noisecal "
+                             f"reads ({known[-1]}); re-run the baseline with noisecal "
                              f"{__version__}")
         raise InputError(f"{path}: a {layout!r} block is not a baseline; give one written by "
                          "static, motion (or motion --odometry) or targets")

@@ -104,7 +104,7 @@ def _variants(text: str, doc: dict):
         out.append((name, yaml.safe_dump(d, sort_keys=False)))
 
     ch = "gyro_x"
-    edit("another version", lambda d: d.__setitem__("layout", "noisecal.static/2"))
+    edit("another version", lambda d: d.__setitem__("layout", "noisecal.static/3"))
     edit("a re-check block", lambda d: d.__setitem__("layout", "noisecal.recheck/1"))
     edit("no layout", lambda d: d.pop("layout"))
     edit("no channels", lambda d: d.pop("channels"))
@@ -159,10 +159,32 @@ def test_damaged_baselines_one_line_exit_two(static_base, tmp_path, run_cli):
 def test_other_version_names_the_version(static_base, tmp_path, run_cli):
     base, new = static_base
     doc = yaml.safe_load(base.read_text())
-    doc["layout"] = "noisecal.static/2"
+    doc["layout"] = "noisecal.static/3"
     path = tmp_path / "v2.yaml"
     path.write_text(yaml_block.render(doc))
-    _one_line_error(*run_cli("recheck", path, new)[::2], "another version", "static/1")
+    _one_line_error(*run_cli("recheck", path, new)[::2], "another version", "static/2")
+
+
+def test_layout_1_block_is_migrated(static_base, tmp_path, run_cli):
+    """A block written before the statistic was spelled out (layout noisecal.static/1,
+    allan_points.kind: oadev) is still a baseline: read as layout 2 after its checksum
+    is verified. The new block names the statistic in words (common practice, no source)."""
+    base, new = static_base
+    doc = yaml.safe_load(base.read_text())
+    assert doc["layout"] == "noisecal.static/2"
+    assert {e["allan_points"]["kind"] for e in doc["channels"].values()} == {
+        "overlapping_allan_deviation"}
+    doc["layout"] = "noisecal.static/1"
+    for entry in doc["channels"].values():
+        entry["allan_points"]["kind"] = "oadev"
+    path = tmp_path / "v1.yaml"
+    path.write_text(yaml_block.render(doc))
+    status, out, err = run_cli("recheck", path, new)
+    assert status in (0, 1, 3) and "re-check (static)" in out, err
+    migrated = yaml_block.migrate(yaml.safe_load(path.read_text()))
+    assert migrated["layout"] == "noisecal.static/2"
+    assert {e["allan_points"]["kind"] for e in migrated["channels"].values()} == {
+        "overlapping_allan_deviation"}
 
 
 # --------------------------------------------------------------------------- paths
