@@ -219,6 +219,39 @@ def _parser() -> argparse.ArgumentParser:
     _report_option(r)
     _history_options(r)
 
+    fm = sub.add_parser("filter", help="your filter's discrete Phi, Q and R with intervals, "
+                        "from a model file (Van Loan; Jacobians for a Python model)")
+    fm.add_argument("model", help="model YAML: states, dt, F or Phi (or python), noise, "
+                    "measurements")
+    fm.add_argument("-o", "--output", required=True,
+                    help="YAML block to write (- for standard output)")
+    fm.add_argument("--draws", type=_ranged(int, 200, example="2000"), default=2000,
+                    help="Monte Carlo draws over the noise intervals (default 2000)")
+    fm.add_argument("--seed", type=SEED, default=1, help="Monte Carlo seed (default 1)")
+    fm.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    _report_option(fm)
+
+    cs = sub.add_parser("consistency", help="NIS, NEES and whiteness of a running filter's "
+                        "log; exit 0 consistent, 1 not, 2 error")
+    cs.add_argument("logs", nargs="+", metavar="LOG", help="filter log(s), one per run: "
+                    "nu_<measurement>, S_<a>_<b> [, x_<state>, P_<a>_<b>, truth_<state>]")
+    cs.add_argument("--model", required=True, help="the filter's model YAML")
+    cs.add_argument("-o", "--output", required=True,
+                    help="YAML block to write (- for standard output)")
+    cs.add_argument("--estimate", action="store_true", help="also estimate Q and R by "
+                    "autocovariance least squares (needs filter_used in the model)")
+    cs.add_argument("--lags", type=_ranged(int, 1, example="20"),
+                    help="lags of the whiteness test and ALS (default: from the filter's "
+                    "error dynamics)")
+    cs.add_argument("--level", type=float, default=0.95,
+                    help="level of the bands and intervals (default 0.95)")
+    cs.add_argument("--reps", type=int, default=200,
+                    help="bootstrap replicates of the ALS intervals (default 200)")
+    cs.add_argument("--seed", type=SEED, default=1, help="bootstrap seed (default 1)")
+    cs.add_argument("--overwrite", action="store_true", help="replace existing outputs")
+    cs.add_argument("--no-cache", action="store_true", help="do not use the binary cache")
+    _report_option(cs)
+
     h = sub.add_parser("history", help="a unit's stored runs: table, plot, CSV")
     h.add_argument("unit", metavar="SERIAL")
     h.add_argument("--db", default=DEFAULT_DB, help="history database (default noisecal.db)")
@@ -463,6 +496,27 @@ def _run(args, command: str, recorder) -> int:
             return result.exit_status
         elif args.command == "history":
             return _history(args, say)
+        elif args.command == "filter":
+            from .jobs.filter import run_filter, summary as filter_summary
+
+            report = _report_first(args, [args.model])
+            result = run_filter(args.model, args.output, args.draws, args.seed,
+                                args.overwrite, command)
+            say(filter_summary(result))
+            _report_after(result, report, args.overwrite)
+            _done(say, args, None)
+        elif args.command == "consistency":
+            from .jobs.consistency import run_consistency, summary as consistency_summary
+
+            report = _report_first(args, list(args.logs) + [args.model])
+
+            result = run_consistency(args.logs, args.model, args.output, args.estimate,
+                                     args.lags, args.reps, args.seed, args.level,
+                                     args.overwrite, command, use_cache=not args.no_cache)
+            say(consistency_summary(result))
+            _report_after(result, report, args.overwrite)
+            _done(say, args, None)
+            return result.exit_status
         elif args.command == "batch":
             from .api import batch
 
@@ -503,6 +557,24 @@ def _run(args, command: str, recorder) -> int:
 
 
 _JOBS = ("static", "motion", "targets")
+
+
+def _report_first(args, inputs):
+    """``--report`` of a job whose run function writes no report: checked before the work."""
+    if not args.report:
+        return None
+    from .export.html import check_report_path
+
+    return check_report_path(args.report, inputs, args.overwrite, [args.output])
+
+
+def _report_after(result, report, overwrite: bool) -> None:
+    """Write the checked ``--report`` of ``result`` (after the job's own outputs)."""
+    if report is not None:
+        from .export.atomic import write_text
+        from .export.html import render_job
+
+        write_text(report, render_job(result), overwrite=overwrite)
 
 
 def _done(say, args, record) -> None:

@@ -304,11 +304,16 @@ def summary(res: OdometryResult) -> str:
 def run_odometry(odometry_path: str, truth_path: str, config_path: str, out: str,
                  plot: str | None = None, max_offset: float = 1.0, overwrite: bool = False,
                  quiet: bool = False, command: str = "", use_cache: bool = True,
-                 record=None) -> OdometryResult:
+                 record=None, report: str | None = None) -> OdometryResult:
     """Read, analyse and write the odometry YAML block and plot (and store the run in
-    ``record``, a :class:`noisecal.jobs.history.Recorder`, together with them)."""
+    ``record``, a :class:`noisecal.jobs.history.Recorder`, together with them; and the
+    HTML ``report`` when given)."""
+    from .static import _report_path
+
     out_path, plot_path = output_paths(out, plot, [odometry_path, truth_path, config_path],
                                        overwrite, getattr(record, "paths", ()))
+    report_path = _report_path(report, [odometry_path, truth_path, config_path], overwrite,
+                               record, out_path, plot_path)
     cfg = read_odometry_config(config_path)
     bars = StageBars(quiet)
     try:
@@ -320,6 +325,10 @@ def run_odometry(odometry_path: str, truth_path: str, config_path: str, out: str
     with Staged(overwrite) as staged:
         if plot_path is not None:
             odometry_figure(res, staged.path(plot_path))
+        if report_path is not None:
+            from ..export.html import render_job
+
+            staged.text(report_path, render_job(res))
         staged.text(out_path, res._render(None if out_path == STDOUT else out_path))
         staged.commit(record(res) if record else None)
     return res

@@ -115,6 +115,19 @@ class JobResult:
         write_text(path, self._render(path), overwrite=overwrite)
         return path
 
+    def report(self, path: str | Path, overwrite: bool = False) -> Path:
+        """Write the self-contained HTML report of this result atomically; an existing
+        file is replaced only with ``overwrite=True``.
+
+        Returns
+        -------
+        Path
+            The file written.
+        """
+        from ..export.html import write_report
+
+        return write_report(self, path, overwrite)
+
     def estimate(self, channel: str, name: str) -> Estimate:
         """The Estimate of one parameter (full precision)."""
         for p in self.parameters():

@@ -291,12 +291,16 @@ def run_targets(detections_path: str, survey_path: str, camera_path: str, out: s
                 plot: str | None = None, ground: str = "ray",
                 gate_probability: float = GATE_PROBABILITY, overwrite: bool = False,
                 seed: int = 1, command: str = "", poses_path: str | None = None,
-                record=None) -> TargetsResult:
+                record=None, report: str | None = None) -> TargetsResult:
     """Read, analyse and write the camera YAML block and plot (and store the run in
-    ``record``, a :class:`noisecal.jobs.history.Recorder`, together with them)."""
+    ``record``, a :class:`noisecal.jobs.history.Recorder`, together with them; and the
+    HTML ``report`` when given)."""
+    from .static import _report_path
+
     inputs = [detections_path, survey_path, camera_path] + ([poses_path] if poses_path else [])
     out_path, plot_path = output_paths(out, plot, inputs, overwrite,
                                        getattr(record, "paths", ()))
+    report_path = _report_path(report, inputs, overwrite, record, out_path, plot_path)
     camera = read_camera(camera_path)
     survey = read_survey(survey_path)
     det = read_detections(detections_path, survey, camera)
@@ -308,6 +312,10 @@ def run_targets(detections_path: str, survey_path: str, camera_path: str, out: s
     with Staged(overwrite) as staged:
         if plot_path is not None:
             camera_figure(res, staged.path(plot_path))
+        if report_path is not None:
+            from ..export.html import render_job
+
+            staged.text(report_path, render_job(res))
         staged.text(out_path, res._render(None if out_path == STDOUT else out_path))
         staged.commit(record(res) if record else None)
     return res
