@@ -42,3 +42,17 @@ bench: $(STAMP)
 test test-slow: $(VENV)/refdata/allantools-2024.6.tar.gz
 $(VENV)/refdata/allantools-2024.6.tar.gz: $(STAMP)
 	$(BIN)/python -m pip download --quiet --no-deps --no-binary :all: allantools==2024.6 -d $(VENV)/refdata || echo "allantools sdist not downloaded: the reference-table tests will skip"
+
+## Debian's chromium and chromium-driver for the HTML reports' browser tests: installed with
+## apt when missing and apt is at hand (root, or sudo); without them those tests skip
+## (under CI=true they fail).
+.PHONY: browser
+test test-slow: browser
+browser:
+	@if [ -x /usr/bin/chromium ] && [ -x /usr/bin/chromedriver ]; then :; \
+	elif command -v apt-get >/dev/null 2>&1; then \
+	  if [ "$$(id -u)" = 0 ]; then SUDO=; else SUDO=sudo; fi; \
+	  echo "installing Debian's chromium and chromium-driver for the browser tests"; \
+	  $$SUDO apt-get update -qq && DEBIAN_FRONTEND=noninteractive $$SUDO apt-get install -y -qq \
+	    chromium chromium-driver >/dev/null || echo "chromium not installed: the browser tests will skip"; \
+	else echo "no apt-get: install chromium and chromium-driver for the browser tests"; fi
