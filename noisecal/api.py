@@ -34,7 +34,7 @@ from .jobs.result import ParameterError, seconds, whole
 from .types import Recording
 
 __all__ = ["read", "static", "motion", "odometry", "targets", "recheck", "batch", "fleet",
-           "ParameterError"]
+           "filter", "consistency", "ParameterError"]
 
 
 def _probability(name: str, value) -> float:
@@ -291,6 +291,76 @@ def recheck(baseline, recording, *, truth=None, limits: str | None = None,
                poses=None if poses is None else _path("poses", poses),
                accept_edited=bool(accept_edited), verdict_on=verdict_on,
                at=None if at is None else [float(v) for v in at])
+
+
+def filter(model, *, draws: int = 2000, seed: int = 1, command: str = ""):
+    """Your filter's discrete Phi, Q and R with intervals, from a model file.
+
+    Parameters
+    ----------
+    model : str or Path
+        Model YAML: ``states``, ``dt``, ``F`` (continuous) or ``Phi`` (discrete) or
+        ``python`` (a file with ``f(x, u, w, dt)``, ``h(x, v)``) with an
+        ``operating_point``, ``noise`` and ``measurements`` (see README).
+    draws : int
+        Monte Carlo draws over the noise estimates' intervals (at least 200).
+    seed : int
+    command : str
+
+    Returns
+    -------
+    FilterResult
+        ``matrices`` (Phi, Q, R with ``_low``/``_high``), ``parameters()``.
+
+    Examples
+    --------
+    >>> import noisecal.api as api
+    >>> api.filter("model.yaml", draws=10)
+    Traceback (most recent call last):
+    ...
+    noisecal.jobs.result.ParameterError: draws=10: give at least 200
+    """
+    from .jobs.filter import discretise
+    from .model.spec import read_model
+
+    draws = whole("draws", draws, 200)
+    return discretise(read_model(_path("model", model)), draws, whole("seed", seed, 0),
+                      command)
+
+
+def consistency(logs, *, model, estimate: bool = False, lags: int | None = None,
+                reps: int = 200, seed: int = 1, level: float = 0.95, command: str = ""):
+    """Is a running filter's noise right? NIS, NEES, whiteness; Q and R by ALS.
+
+    Parameters
+    ----------
+    logs : Recording, path, or list of them
+        The filter's log, one per run: ``nu_<measurement>``, ``S_<a>_<b>``
+        (optionally ``x_<state>``, ``P_<a>_<b>``, ``truth_<state>``).
+    model : str or Path
+        The filter's model YAML (``filter_used`` for ``estimate``).
+    estimate : bool
+        Estimate Q and R by autocovariance least squares.
+    lags : int, optional
+    reps : int
+        Bootstrap replicates of the ALS intervals (at least 50).
+    seed : int
+    level : float
+        Level of the bands and intervals.
+    command : str
+
+    Returns
+    -------
+    ConsistencyResult
+        ``consistent``, ``direction``, ``nis``, ``nees``, ``whiteness``, ``als_fit``.
+    """
+    from .jobs.consistency import check
+    from .model.spec import read_model
+
+    items = logs if isinstance(logs, (list, tuple)) else [logs]
+    recs = [_recording("logs", r) for r in items]
+    return check(read_model(_path("model", model)), recs, bool(estimate), lags, reps, seed,
+                 level, command)
 
 
 def batch(manifest, *, output, db=None, scheduler: str | None = None,

@@ -17,6 +17,8 @@ IEEE Trans. Automatic Control 23(3), 395–403, 1978.
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 from scipy.linalg import expm
 
@@ -212,7 +214,9 @@ def monte_carlo(model, draws: int = 2000, seed: int = 1, level: float = 0.95):
     Q = Qs.sum(0)
     out = {"Phi": Phi, "Q": Q, "Qs": Qs, "F": F, "qc": qc}
     for key, point, sims in (("Phi", Phi, phis), ("Q", Q, qs), ("qc", qc, qcs)):
-        lo, hi = np.nanquantile(sims, [a, 1 - a], axis=0)
+        with warnings.catch_warnings():  # a variance source has no density: NaN column
+            warnings.simplefilter("ignore", RuntimeWarning)
+            lo, hi = np.nanquantile(sims, [a, 1 - a], axis=0)
         out[f"{key}_low"] = np.fmin(lo, point)
         out[f"{key}_high"] = np.fmax(hi, point)
     sig0 = np.array([_point(mm.sigma) for mm in model.measurements])

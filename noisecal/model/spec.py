@@ -493,6 +493,9 @@ def read_model(path: str | Path) -> FilterModel:
     python = x0 = u0 = None
     if form == "python":
         python = str((path.parent / r.text(doc["python"], "python")))
+        if not Path(python).is_file():
+            r.fail("python", f"no such Python model file {doc['python']!r} (relative to the "
+                   "model file's folder); check the path")
         op = doc.get("operating_point")
         if not isinstance(op, dict) or "x" not in op:
             r.fail("operating_point", "a Python model needs operating_point: {x: [...], "
