@@ -387,7 +387,8 @@ def read_manifest(path: str | Path) -> list:
         try:
             if cells is None:
                 raise InputError(f"{where}: not a row of the manifest's columns (more cells "
-                                 "than the header, or not a mapping)")
+                                 "than the header: quote a cell that holds commas; or, in "
+                                 "YAML, not a mapping)")
             row = _row(index, where, cells, base)
             key = (row.unit, row.stem)
             if key in seen:
