@@ -34,7 +34,7 @@ from .jobs.result import ParameterError, seconds, whole
 from .types import Recording
 
 __all__ = ["read", "static", "motion", "odometry", "targets", "recheck", "batch", "fleet",
-           "filter", "consistency", "ParameterError"]
+           "filter", "consistency", "ros_parameters", "ParameterError"]
 
 
 def _probability(name: str, value) -> float:
@@ -45,9 +45,11 @@ def _probability(name: str, value) -> float:
 
 def _recording(name: str, value, use_cache: bool = True) -> Recording:
     """A Recording given as one, or a path read with the file readers."""
+    from .ingest.ros_bag import RosInput
+
     if isinstance(value, Recording):
         return value
-    if isinstance(value, (str, Path)):
+    if isinstance(value, (str, Path, RosInput)):
         from .ingest import read_recording
 
         return read_recording(value, use_cache=use_cache)
@@ -62,7 +64,8 @@ def _path(name: str, value) -> str:
 
 
 def read(source, *, period: float | None = None, units: dict | None = None,
-         time=None, repair: str | None = None, cache: bool = True) -> Recording:
+         time=None, repair: str | None = None, cache: bool = True, topic: str | None = None,
+         msgtype: str | None = None) -> Recording:
     """A recording from a file, or from arrays in memory.
 
     Parameters
@@ -80,6 +83,12 @@ def read(source, *, period: float | None = None, units: dict | None = None,
         Timestamp repair of a file (recorded in its provenance).
     cache : bool
         Use the binary cache of validated files.
+    topic : str, optional
+        Topic of a ROS bag (``.bag``, ``.mcap``, ``.db3`` or a ROS 2 bag folder);
+        its time is ``header.stamp``, its channels the message's field paths.
+    msgtype : str, optional
+        Message type, e.g. ``"sensor_msgs/msg/Imu"``: units of a ROS CSV export;
+        a bag topic of another type is refused.
 
     Returns
     -------
@@ -95,13 +104,23 @@ def read(source, *, period: float | None = None, units: dict | None = None,
     """
     if repair not in (None, "sort", "drop"):
         raise ParameterError("repair", repair, "give None, 'sort' or 'drop'")
+    for name, value in (("topic", topic), ("msgtype", msgtype)):
+        if value is not None and not (isinstance(value, str) and value.strip()):
+            raise ParameterError(name, value, "give a name such as '/imu' or "
+                                 "'sensor_msgs/msg/Imu'")
     if isinstance(source, (str, Path)):
         if period is not None or units is not None or time is not None:
             raise ParameterError("period", period, "a file names its own time column and "
                                  "units; give period/units/time only with arrays")
         from .ingest import read_recording
+        from .ingest.ros_bag import RosInput
 
+        if topic is not None or msgtype is not None:
+            source = RosInput(str(source), topic, msgtype)
         return read_recording(source, repair=repair, use_cache=bool(cache))
+    if topic is not None or msgtype is not None:
+        raise ParameterError("topic", topic, "topic and msgtype apply to a bag or ROS CSV "
+                             "export path, not to arrays")
     from .ingest.arrays import read_arrays
 
     return read_arrays(source, seconds("period", period), units, time)
@@ -441,3 +460,31 @@ def fleet(db, *, output=None, sensor: str | None = None, limits=None, plot=None,
     return run_fleet(_path("db", db), None if output is None else _path("output", output),
                      sensor, None if limits is None else _path("limits", limits),
                      None if plot is None else _path("plot", plot), bool(overwrite))
+
+
+def ros_parameters(result, *, node: str = "noisecal") -> str:
+    """A static or motion result as a ROS 2 parameter file's text.
+
+    Parameters
+    ----------
+    result : StaticResult or MotionResult
+    node : str
+        Node name the parameters are for (``<node>: ros__parameters: …``).
+
+    Returns
+    -------
+    str
+        The message covariance arrays (row-major, SI) and the REP 145 ``*_stddev``
+        parameters of the characterised quantities (:mod:`noisecal.export.ros_params`).
+    """
+    from .export.ros_params import check_node, render_result
+
+    if not (hasattr(result, "block") or hasattr(result, "model")) or not hasattr(
+            result, "sections"):
+        raise ParameterError("result", type(result).__name__, "give the result of "
+                             "noisecal.static or noisecal.motion")
+    try:
+        node = check_node(node)
+    except Exception:
+        raise ParameterError("node", node, "give a ROS node name, e.g. 'imu_driver'") from None
+    return render_result(result, node)

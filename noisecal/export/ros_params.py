@@ -65,11 +65,22 @@ def _specs() -> list:
     return out
 
 
+_POSE = re.compile(r"(?:^|\.)(?P<part>position|orientation|linear|angular)\."
+                   r"(?P<axis>x|y|z|roll|pitch|yaw)$")
+_PARTS = {("position", "m"): "pose.pose.position", ("orientation", "rad"): "pose.pose.orientation",
+          ("linear", "m/s"): "twist.twist.linear", ("angular", "rad/s"): "twist.twist.angular"}
+
+
 def _row_name(channel: str, unit: str) -> str | None:
-    """The message row a channel stands for: its field path, or unit + axis suffix."""
+    """The message row a channel stands for: its field path (a pose or twist of any
+    message maps to the ``*WithCovariance`` rows), or unit + axis suffix."""
     for spec in _specs():
         if channel in spec.rows:
             return channel
+    m = _POSE.search(channel)
+    if m and (m.group("part"), unit) in _PARTS:
+        row = f"{_PARTS[(m.group('part'), unit)]}.{m.group('axis')}"
+        return row if any(row in spec.rows for spec in _specs()) else None
     m = _AXIS.search(channel)
     if not m:
         return None
@@ -128,12 +139,14 @@ def parameters(order, units, R) -> tuple[dict, list]:
     Returns
     -------
     params : dict
-        Flat parameter name → float list or float.
+        Flat parameter name → float list or float; an array's name is its
+        message field with ``_`` for ``.`` (``pose.covariance`` → ``pose_covariance``).
     missing : list of str
         Arrays not written (see :func:`covariance_arrays`).
     """
     arrays, missing = covariance_arrays(order, units, R)
-    params = dict(arrays)
+    # A parameter name has no dots (they nest namespaces): pose.covariance → pose_covariance.
+    params = {field.replace(".", "_"): values for field, values in arrays.items()}
     for field, values in arrays.items():
         name = STDDEV.get(field)
         if name is not None:

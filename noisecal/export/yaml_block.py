@@ -180,13 +180,15 @@ def filter_section(fb: FilterBlock) -> dict:
         "gauss_markov": {"phi": vec(fb.gm_phi), "q": vec(fb.gm_q),
                          "q_range95": {"low": vec(fb.gm_q_low), "high": vec(fb.gm_q_high)}},
         "continuous": {"white_psd": vec(fb.white_psd), "bias_rw_psd": vec(fb.bias_rw_psd)},
-        **_ros_arrays(fb.order, fb.units, fb.R),
+        **ros_covariance(fb.order, fb.units, fb.R),
         "notes": list(fb.notes),
     }
 
 
-def _ros_arrays(order, units, R) -> dict:
-    """``ros_covariance``: R in the row-major arrays of the ROS messages, where it fits one."""
+def ros_covariance(order, units, R) -> dict:
+    """``{"ros_covariance": {field: [9 or 36 floats]}}``: R (SI) in the row-major arrays
+    of the ROS messages where whole arrays are characterised, else ``{}``
+    (:func:`noisecal.export.ros_params.covariance_arrays`)."""
     from .ros_params import covariance_arrays
 
     arrays, _ = covariance_arrays(order, units, R)

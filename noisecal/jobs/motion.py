@@ -231,6 +231,7 @@ def _sections(res: MotionResult, seed: int, max_offset: float, command: str) -> 
             "R": yaml_block.matrix(m.R),
             "R_ci95": {"low": yaml_block.matrix(m.R_low), "high": yaml_block.matrix(m.R_high)},
             "R_all_samples": yaml_block.matrix(m.R_all),
+            **yaml_block.ros_covariance(m.order, m.units, m.R),
             "outlier_fraction": {"value": num(m.outlier_fraction.value),
                                  "ci95": [num(m.outlier_fraction.lower),
                                           num(m.outlier_fraction.upper)],
@@ -253,7 +254,8 @@ _COMMENTS = {
     "alignment": "Sensor-truth time offset with its 95 % interval (see 'convention').",
     "measurement": ("Measurement noise over 'order' (SI). R: covariance of the samples inside\n"
                     "the chi-square gate, corrected for the cut; R_all_samples: with outliers.\n"
-                    "Use R with the same gate in the filter. A starting point: confirm on the\n"
+                    "Use R with the same gate in the filter. ros_covariance: R as the ROS\n"
+                    "messages' row-major arrays (REP 103). A starting point: confirm on the\n"
                     "real system."),
 }
 
