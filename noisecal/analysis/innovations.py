@@ -23,7 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import stats
 
-from .residuals import acf, ljung_box
+from .residuals import acf, effective_size, ljung_box
 
 
 def normalised_squares(e: np.ndarray, cov: np.ndarray):
@@ -53,8 +53,9 @@ def normalised_squares(e: np.ndarray, cov: np.ndarray):
     return np.einsum("kd,kd->k", white, white), white
 
 
-def chi2_band(dof: int, count: int, level: float = 0.95) -> tuple[float, float]:
-    """Two-sided band of the average of ``count`` independent χ²(dof) values.
+def chi2_band(dof: int, count: float, level: float = 0.95) -> tuple[float, float]:
+    """Two-sided band of the average of ``count`` independent χ²(dof) values
+    (``count`` may be an effective, non-integer number).
 
     Returns
     -------
@@ -78,6 +79,10 @@ class ChiSquareTest:
         Degrees of freedom of one value (m or n).
     steps : int
         Values averaged (all runs together).
+    effective : float
+        Independent values they are worth: ``steps`` for NIS (white under the
+        hypothesis), Geyer's effective size for NEES (estimation errors are
+        correlated over steps even in a consistent filter).
     runs : int
     mean : float
         Average of the values (its expectation is ``dof``).
@@ -102,6 +107,7 @@ class ChiSquareTest:
     kind: str
     dof: int
     steps: int
+    effective: float
     runs: int
     mean: float
     band: tuple
@@ -115,7 +121,7 @@ class ChiSquareTest:
 
 
 def chi_square_test(values: list, dof: int, kind: str = "NIS",
-                    level: float = 0.95) -> ChiSquareTest:
+                    level: float = 0.95, correlated: bool = False) -> ChiSquareTest:
     """The time-averaged (and, for several runs, ensemble) test of NIS or NEES values.
 
     Parameters
@@ -127,6 +133,10 @@ def chi_square_test(values: list, dof: int, kind: str = "NIS",
     kind : str
     level : float
         Two-sided level of the bands, e.g. 0.95.
+    correlated : bool
+        The values are correlated over steps under the hypothesis (NEES): the
+        time-averaged band uses their effective number (Geyer's initial positive
+        sequence, :func:`noisecal.analysis.residuals.effective_size`).
 
     Returns
     -------
@@ -137,7 +147,8 @@ def chi_square_test(values: list, dof: int, kind: str = "NIS",
     Bar-Shalom, Li & Kirubarajan (2001), §5.4.2 (time-average and N-run bands).
     """
     allv = np.concatenate(values)
-    k = allv.shape[0]
+    steps = allv.shape[0]
+    k = sum(effective_size(v) for v in values) if correlated else float(steps)
     mean = float(allv.mean())
     lo, hi = chi2_band(dof, k, level)
     verdict = "above" if mean > hi else "below" if mean < lo else "within"
@@ -152,7 +163,8 @@ def chi_square_test(values: list, dof: int, kind: str = "NIS",
         ens = np.mean([v[:shortest] for v in values], axis=0)
         run_band = chi2_band(dof, len(values), level)
         run_out = float(np.mean((ens < run_band[0]) | (ens > run_band[1])))
-    return ChiSquareTest(kind, dof, k, len(values), mean, (lo, hi), level, verdict,
+    return ChiSquareTest(kind, dof, steps, float(k), len(values), mean, (lo, hi), level,
+                         verdict,
                          tuple(float(x) for x in sc), gate, float(np.mean(allv > gate)),
                          run_band, run_out)
 

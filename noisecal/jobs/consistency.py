@@ -256,7 +256,7 @@ def check(model: FilterModel, logs: list, estimate: bool = False, lags: int | No
     if all("err" in a for a in arrays):
         nees_v = [_squares(a["err"], a["P"], r.source.path, "P")[0]
                   for r, a in zip(logs, arrays)]
-        nees = chi_square_test(nees_v, model.n, "NEES", level)
+        nees = chi_square_test(nees_v, model.n, "NEES", level, correlated=True)
     notes = list(model.notes)
     fit = None
     steady = None
@@ -313,6 +313,7 @@ def check(model: FilterModel, logs: list, estimate: bool = False, lags: int | No
 def _test_section(t: ChiSquareTest) -> dict:
     num = yaml_block.num
     out = {"mean": num(t.mean), "expected": t.dof, "dof": t.dof, "steps": t.steps,
+           "effective_steps": num(t.effective),
            "runs": t.runs, "band": [num(t.band[0]), num(t.band[1])], "level": t.level,
            "verdict": t.verdict,
            "scale": {"value": num(t.scale[0]), "ci": [num(t.scale[1]), num(t.scale[2])],
@@ -353,9 +354,10 @@ def _sections(model, logs, nis, nees, wh, consistent, direction, fit, steady, no
     }
     if nees is not None:
         cons["nees"] = _test_section(nees)
-    cons["assumes"] = ("NIS values independent over steps (the time-averaged band); a "
-                       "filter whose innovations are correlated has a wider spread of "
-                       "mean NIS than the band")
+    cons["assumes"] = ("NIS values independent over steps (true of a consistent filter: "
+                       "the time-averaged band uses every step); NEES values are "
+                       "correlated over steps even then, so its band uses their effective "
+                       "number (Geyer)")
     cons["notes"] = notes
     sections = {
         "layout": LAYOUT,
