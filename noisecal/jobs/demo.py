@@ -5,7 +5,7 @@ from __future__ import annotations
 from pathlib import Path
 
 from ..errors import InputError
-from .inspect import run_inspect
+from .inspect import describe, run_inspect
 from .motion import run_motion
 from .motion import summary as motion_summary
 from .odometry import run_odometry
@@ -21,14 +21,16 @@ YARD = ("recordings/yard_detections.csv", "recordings/yard_survey.csv",
         "recordings/yard_camera.yaml")
 ENCODERS = ("recordings/encoder_ticks.csv", "recordings/encoder_truth.csv",
             "recordings/encoder_config.yaml")
+BAG = ("recordings/bench_imu_ros2", "/imu/data")
+"""The ROS 2 MCAP bench bag (tools/make_demo_bag.py) and its IMU topic."""
 OUT_DIR = "reports/demo"
 
 
 def run_demo(root: str = ".", quiet: bool = False) -> str:
     """Run the demo from the project root; return what it prints.
 
-    Writes ``static``, ``motion``, ``odometry`` and ``targets`` ``.yaml`` and ``.png`` in
-    ``reports/demo/``.
+    Writes ``static``, ``motion``, ``odometry`` and ``targets`` ``.yaml``, ``.png`` and
+    ``.html`` (the self-contained report) in ``reports/demo/``.
     """
     base = Path(root)
     rec = base / RECORDING
@@ -39,22 +41,43 @@ def run_demo(root: str = ".", quiet: bool = False) -> str:
     out.mkdir(parents=True, exist_ok=True)
     text = [run_inspect(str(rec)), ""]
     result = run_static(str(rec), str(out / "static.yaml"), str(out / "static.png"),
-                        overwrite=True, quiet=quiet, command=f"noisecal demo ({RECORDING})")
+                        overwrite=True, quiet=quiet, command=f"noisecal demo ({RECORDING})",
+                        report=str(out / "static.html"))
     text.append(summary(result))
     sensor, truth, mapping = (str(base / p) for p in DRIVE)
     drive = run_motion(sensor, truth, str(out / "motion.yaml"), mapping,
                        str(out / "motion.png"), overwrite=True, quiet=quiet,
-                       command=f"noisecal demo ({DRIVE[0]} against {DRIVE[1]})")
+                       command=f"noisecal demo ({DRIVE[0]} against {DRIVE[1]})",
+                       report=str(out / "motion.html"))
     text += ["", motion_summary(drive)]
     ticks, truth, config = (str(base / p) for p in ENCODERS)
     wheels = run_odometry(ticks, truth, config, str(out / "odometry.yaml"),
                           str(out / "odometry.png"), overwrite=True, quiet=quiet,
-                          command=f"noisecal demo ({ENCODERS[0]} against {ENCODERS[1]})")
+                          command=f"noisecal demo ({ENCODERS[0]} against {ENCODERS[1]})",
+                          report=str(out / "odometry.html"))
     text += ["", odometry_summary(wheels)]
     detections, survey, camera = (str(base / p) for p in YARD)
     yard = run_targets(detections, survey, camera, str(out / "targets.yaml"),
                        str(out / "targets.png"), overwrite=True,
-                       command=f"noisecal demo ({YARD[0]})")
+                       command=f"noisecal demo ({YARD[0]})", report=str(out / "targets.html"))
     text += ["", targets_summary(yard)]
-    text.append(f"\nwrote static, motion, odometry and targets .yaml and .png into {out}")
+    text += ["", *_ros_bag(base, out, quiet)]
+    text.append(f"\nwrote static, motion, odometry and targets .yaml, .png and .html (the "
+                f"report) into {out}")
     return "\n".join(text)
+
+
+def _ros_bag(base: Path, out: Path, quiet: bool) -> list:
+    """The bench bag's IMU topic: static block and plot, and the ROS 2 parameter file."""
+    from ..export.atomic import write_text
+    from ..export.ros_params import render_result
+    from ..ingest.ros_bag import RosInput
+
+    bag = RosInput(str(base / BAG[0]), BAG[1])
+    imu = run_static(bag, str(out / "static_ros2.yaml"), str(out / "static_ros2.png"),
+                     overwrite=True, quiet=quiet,
+                     command=f"noisecal demo ({BAG[0]} --topic {BAG[1]})")
+    params = out / "imu_params.yaml"
+    write_text(params, render_result(imu, "imu_driver"), overwrite=True)
+    return [describe(imu.recording), "", summary(imu),
+            f"wrote {out / 'static_ros2.yaml'} and the ROS 2 parameter file {params}"]

@@ -57,14 +57,10 @@ def job_figures(result) -> list[Figure]:
     from ...jobs.targets import TargetsResult
 
     if isinstance(result, StaticResult):
-        from ..plot import allan_figure
-
         out = []
         # One panel a figure: at report width each stays legible, also on a phone.
         for name, ch in result.channels.items():
-            png = drawn(lambda p, ch=ch, name=name: allan_figure(
-                [ch.model], [ch.dense], [ch.hadamard], p,
-                f"{name}: overlapping Allan deviation, 95 % intervals, fitted terms"))
+            png = allan_panel(ch.model, ch.dense, ch.hadamard)
             out.append(embed(png, f"{name}: Allan deviation",
                              "Overlapping Allan and Hadamard deviation with 95 % intervals; "
                              "the fitted IEEE Std 952 terms; dotted terms are upper bounds."))
@@ -100,6 +96,27 @@ def job_figures(result) -> list[Figure]:
     if callable(own):
         return [embed(png, title, caption) for title, caption, png in own()]
     return []
+
+
+def allan_panel(model, dense, hadamard) -> bytes:
+    """One channel's Allan panel as the static job's plot draws it, with its style legend
+    in two columns above it (the job's five-column legend is made for three panels)."""
+    from ..plot import _figure, _panel, _style_legend
+
+    width, height = 6.4, 8.4
+    fig = _figure(width, height)
+    ax = fig.subplots(1, 1)
+    _panel(ax, model, dense, hadamard)
+    _style_legend(fig)
+    old = fig.legends.pop()
+    fig.legend(old.legend_handles, [t.get_text() for t in old.get_texts()],
+               loc="upper center", ncol=2, fontsize=7, frameon=False,
+               bbox_to_anchor=(0.5, 0.995))
+    fig.subplots_adjust(left=0.8 / width, right=1 - 0.25 / width, top=1 - 1.5 / height,
+                        bottom=1.75 / height)
+    buf = io.BytesIO()
+    fig.savefig(buf, dpi=110, format="png")
+    return buf.getvalue()
 
 
 _VERDICT_Y = {"consistent": 0, "better": 0, "inconclusive": 1, "changed": 2, "worse": 2}
