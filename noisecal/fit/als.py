@@ -119,6 +119,8 @@ class AlsFit:
     level : float
     residual : float
         Relative least-squares residual ‖𝒜θ − b‖/‖b‖.
+    draws : ndarray, shape (reps, p)
+        The bootstrap replicates' θ.
     """
 
     theta: np.ndarray
@@ -138,6 +140,7 @@ class AlsFit:
     seed: int
     level: float
     residual: float
+    draws: np.ndarray
 
 
 def design(Phi, H, L, Q_terms: np.ndarray, lags: int) -> np.ndarray:
@@ -303,7 +306,7 @@ def als(nus: list, Phi: np.ndarray, H: np.ndarray, L: np.ndarray, Q_terms: np.nd
     q_lo, q_hi = np.quantile(qs, [a, 1 - a], axis=0)
     r_lo, r_hi = np.quantile(rs, [a, 1 - a], axis=0)
     return AlsFit(theta, Q, R, q_lo, q_hi, r_lo, r_hi, th_lo, th_hi, lags, rank, ident,
-                  each, reps, seed, level, resid)
+                  each, reps, seed, level, resid, thetas)
 
 
 def default_lags(Phi, H, L, steps: int) -> int:

@@ -305,7 +305,8 @@ def check(model: FilterModel, logs: list, estimate: bool = False, lags: int | No
         terms = Qs / np.where(amp0 > 0, amp0, 1.0)[:, None, None] ** 2
         fit = als(nus, Phi, H, gain, terms, lags, reps, seed, level)
     sections = _sections(model, logs, nis, nees, wh, consistent, direction, fit, steady,
-                         notes, seed, reps, level, command)
+                         notes, seed, reps, level, command,
+                         terms if fit is not None else None)
     return ConsistencyResult(model, tuple(logs), nis, nees, wh, consistent, direction, fit,
                              sections)
 
@@ -330,7 +331,7 @@ def _test_section(t: ChiSquareTest) -> dict:
 
 
 def _sections(model, logs, nis, nees, wh, consistent, direction, fit, steady, notes, seed,
-              reps, level, command) -> dict:
+              reps, level, command, terms=None) -> dict:
     num, m = yaml_block.num, yaml_block.matrix
     names = [mm.name for mm in model.measurements]
     cons = {
@@ -392,14 +393,7 @@ def _sections(model, logs, nis, nees, wh, consistent, direction, fit, steady, no
             "measurement_order": names,
             "R": m(fit.R),
             "R_ci": {"low": m(fit.R_low), "high": m(fit.R_high)},
-            "sources": {src.name: {
-                "q": num(fit.theta[i]), "ci": [num(fit.theta_low[i]), num(fit.theta_high[i])],
-                "kind": {"density": "spectral density q (u^2/Hz)",
-                         "variance": "discrete variance per step",
-                         "gauss_markov": "stationary variance sigma^2"}[src.kind],
-                "identifiable": bool(fit.sources_identifiable[i]),
-                "model_value": num(_amp(src) ** 2)}
-                for i, src in enumerate(model.sources)},
+            "sources": _source_section(model, fit, terms),
             "filter_used": {"Q": m(model.used_Q), "R": m(model.used_R)},
             "identifiability": {
                 "unknowns": int(s + model.m),
@@ -412,6 +406,40 @@ def _sections(model, logs, nis, nees, wh, consistent, direction, fit, steady, no
         }
         sections["estimate"] = est
     return sections
+
+
+def _source_section(model, fit, terms) -> dict:
+    """Each source's θ with its interval; sources that enter Q alike get their sum."""
+    num = yaml_block.num
+    kinds = {"density": "spectral density q (u^2/Hz)",
+             "variance": "discrete variance per step",
+             "gauss_markov": "stationary variance sigma^2"}
+    out = {}
+    a = (1 - fit.level) / 2
+    for i, src in enumerate(model.sources):
+        entry = {"kind": kinds[src.kind], "identifiable": bool(fit.sources_identifiable[i]),
+                 "model_value": num(_amp(src) ** 2)}
+        if fit.sources_identifiable[i]:
+            entry.update(q=num(fit.theta[i]), ci=[num(fit.theta_low[i]),
+                                                   num(fit.theta_high[i])])
+        else:
+            alike = [k for k in range(len(model.sources)) if not
+                     fit.sources_identifiable[k] and np.allclose(terms[k], terms[i],
+                                                                 rtol=1e-9, atol=0)]
+            names = [model.sources[k].name for k in alike]
+            entry["q"] = None
+            if len(alike) > 1:
+                tot = fit.draws[:, alike].sum(axis=1)
+                lo, hi = np.quantile(tot, [a, 1 - a])
+                entry["sum_with"] = names
+                entry["sum_q"] = num(fit.theta[alike].sum())
+                entry["sum_ci"] = [num(lo), num(hi)]
+                entry["note"] = ("enters Q exactly as " + ", ".join(
+                    n for n in names if n != src.name) + ": only the sum is determined")
+            else:
+                entry["note"] = "not determined by the innovations on its own"
+        out[src.name] = entry
+    return out
 
 
 def _amp(src) -> float:
@@ -473,7 +501,7 @@ def summary(result: ConsistencyResult) -> str:
     lines.append(f"  {result.direction}")
     fit = result.als_fit
     if fit is not None:
-        with np.printoptions(precision=5, linewidth=100):
+        with np.printoptions(linewidth=100, formatter={"float_kind": lambda v: f"{v:11.5g}"}):
             lines.append("  ALS estimate Q =\n    " + str(fit.Q).replace("\n", "\n    "))
             lines.append("  ALS estimate R =\n    " + str(fit.R).replace("\n", "\n    "))
         for p in result.parameters()[1:]:

@@ -246,7 +246,7 @@ def summary(result: FilterResult) -> str:
     mdl, mx = result.model, result.matrices
     lines = [f"{mdl.path}: {mdl.form} model, {mdl.n} states, {len(mdl.sources)} noise "
              f"source(s), {mdl.m} measurement(s), dt = {mdl.dt:g} s"]
-    with np.printoptions(precision=5, suppress=False, linewidth=100):
+    with np.printoptions(linewidth=100, formatter={"float_kind": lambda v: f"{v:11.5g}"}):
         lines.append("  Phi =\n    " + str(mx["Phi"]).replace("\n", "\n    "))
         lines.append("  Q =\n    " + str(mx["Q"]).replace("\n", "\n    "))
         lines.append("  R =\n    " + str(mx["R"]).replace("\n", "\n    "))
@@ -258,6 +258,11 @@ def summary(result: FilterResult) -> str:
     for s in mdl.sources:
         if s.is_bound:
             lines.append(f"  flag: {s.name} is an upper bound; Q uses the bound")
+    fixed = [s.name for s in mdl.sources if s.origin == "model file"] + \
+        [mm.name for mm in mdl.measurements if mm.origin == "model file"]
+    if fixed:
+        lines.append(f"  note: {', '.join(fixed)} given as numbers in the model file: no "
+                     "interval (the intervals above come from the blocks' estimates only)")
     for note in mdl.notes:
         lines.append(f"  note: {note}")
     return "\n".join(lines)

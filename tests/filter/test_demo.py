@@ -61,3 +61,5 @@ def test_demo_consistency_and_estimate(tmp_path, run_cli):
         assert low[i, i] <= Qtrue[i, i] <= high[i, i], i
     assert est["R_ci"]["low"][0][0] <= R_TRUE <= est["R_ci"]["high"][0][0]
     assert "split between" in est["identifiability"]["statement"]
+    wobble = est["sources"]["steering_wobble"]
+    assert wobble["q"] is None and wobble["sum_ci"][0] <= Q_VELOCITY <= wobble["sum_ci"][1]
