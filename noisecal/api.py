@@ -429,7 +429,7 @@ def batch(manifest, *, output, db=None, scheduler: str | None = None,
 
 
 def fleet(db, *, output=None, sensor: str | None = None, limits=None, plot=None,
-          overwrite: bool = False):
+          report=None, overwrite: bool = False):
     """The fleet's distribution of every stored parameter, across units.
 
     Parameters
@@ -444,6 +444,8 @@ def fleet(db, *, output=None, sensor: str | None = None, limits=None, plot=None,
         Limits YAML ``limits: {channel: {parameter: {max: x}}}`` (SI).
     plot : str or Path, optional
         PNG of each unit's value and interval against the fleet's.
+    report : str or Path, optional
+        Self-contained HTML report.
     overwrite : bool
         Replace existing outputs.
 
@@ -459,7 +461,8 @@ def fleet(db, *, output=None, sensor: str | None = None, limits=None, plot=None,
         raise ParameterError("sensor", sensor, "give a sensor name")
     return run_fleet(_path("db", db), None if output is None else _path("output", output),
                      sensor, None if limits is None else _path("limits", limits),
-                     None if plot is None else _path("plot", plot), bool(overwrite))
+                     None if plot is None else _path("plot", plot), bool(overwrite),
+                     None if report is None else _path("report", report))
 
 
 def ros_parameters(result, *, node: str = "noisecal") -> str:

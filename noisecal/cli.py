@@ -287,6 +287,8 @@ def _parser() -> argparse.ArgumentParser:
     f.add_argument("--plot", help="PNG: each unit's value and interval against the fleet's")
     f.add_argument("--limits", help="limits YAML: limits: {channel: {parameter: {max: x}}} "
                    "(SI)")
+    f.add_argument("--report", metavar="PATH.html", help="also write a self-contained "
+                   "HTML report")
     f.add_argument("--overwrite", action="store_true", help="replace existing outputs")
 
     u = sub.add_parser("report", help="a unit's history as one self-contained HTML report")
@@ -530,10 +532,11 @@ def _run(args, command: str, recorder) -> int:
             from .api import fleet
 
             result = fleet(args.db, output=args.output, sensor=args.sensor,
-                           limits=args.limits, plot=args.plot, overwrite=args.overwrite)
+                           limits=args.limits, plot=args.plot, report=args.report,
+                           overwrite=args.overwrite)
             say(result.summary())
-            say(f"wrote {printable(args.output)}"
-                + (f" and {printable(args.plot)}" if args.plot else ""))
+            say("wrote " + ", ".join(printable(p) for p in (args.output, args.plot,
+                                                            args.report) if p))
         elif args.command == "report":
             from .jobs.report import run_unit_report
 

@@ -22,13 +22,13 @@ def fleet_figure(result, path: Path) -> None:
     Parameters
     ----------
     result : FleetResult
-    path : Path
-        PNG to write (a staged temporary file).
+    path : Path or file object
+        Where the PNG goes (a staged temporary file, or a buffer for a report).
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    params = [s for s in result.parameters if s.values][:MAX_PANELS]
+    params = [s for s in result.summaries if s.values][:MAX_PANELS]
     cols = min(3, max(1, len(params)))
     rows = max(1, math.ceil(len(params) / cols))
     fig = Figure(figsize=(5.2 * cols, 3.2 * rows))
@@ -61,6 +61,7 @@ def fleet_figure(result, path: Path) -> None:
         ax.grid(True, axis="y", alpha=0.3)
     fig.suptitle("fleet: each unit (95 %), median (band: 95 %), range of a unit "
                  "(light band); red: outside the fleet", fontsize=9)
-    fig.subplots_adjust(left=0.07, right=0.98, bottom=0.16, top=0.9, wspace=0.3,
-                        hspace=0.7)
+    height = 3.2 * rows
+    fig.subplots_adjust(left=0.07, right=0.98, bottom=0.5 / height * 1.6,
+                        top=1 - 0.6 / height, wspace=0.3, hspace=0.7)
     fig.savefig(path, dpi=90, format="png")

@@ -204,7 +204,8 @@ class FleetResult:
     db : str
     sensor : str or None
     units : tuple of str
-    parameters : tuple of ParameterSummary
+    summaries : tuple of ParameterSummary
+        One per parameter (job, channel, name, unit).
     sections : dict
         The YAML content.
     """
@@ -212,11 +213,48 @@ class FleetResult:
     db: str
     sensor: str | None
     units: tuple
-    parameters: tuple
+    summaries: tuple
     sections: dict
+
+    report_purpose = ("The fleet's distribution of each stored parameter across units: "
+                      "the median and the spread between units with 95 % intervals (each "
+                      "unit's own interval taken into account), the units outside the fleet "
+                      "or a limit, and the median's drift over time.")
 
     def summary(self) -> str:
         return summary(self)
+
+    def parameters(self) -> list:
+        """The fleet's median and spread of each parameter, as Estimates."""
+        from ..types import Estimate
+        from .result import Parameter
+
+        out = []
+        for s in self.summaries:
+            f = s.fit
+            if f is None:
+                continue
+            out.append(Parameter(s.channel, f"{s.name} (fleet median)", Estimate(
+                s.back(f.mu), s.back(f.mu_lower), s.back(f.mu_upper), s.unit,
+                "random effects, HKSJ interval"), {}))
+            tau = [math.sqrt(x) for x in (f.tau2, f.tau2_lower, f.tau2_upper)]
+            out.append(Parameter(s.channel, f"{s.name} (spread between units)", Estimate(
+                *tau, "1" if s.scale == "log" else s.unit,
+                "between-unit SD" + (" of the log" if s.scale == "log" else "")
+                + ", DerSimonian-Laird, Q-profile interval"), {}))
+        return out
+
+    def report_figures(self) -> list:
+        """(title, caption, PNG bytes) for the HTML report."""
+        import io
+
+        from ..export.fleet_plot import fleet_figure
+
+        buf = io.BytesIO()
+        fleet_figure(self, buf)
+        return [("Fleet", "Each unit's latest value with its 95 % interval; the fleet's "
+                 "median (dark band: its 95 % interval) and the range of a unit's true "
+                 "value (light band); red: outside the fleet.", buf.getvalue())]
 
 
 def _all_units(db: Path) -> list:
@@ -476,13 +514,18 @@ def _sections(db, sensor, units, summaries) -> dict:
                 entry["largest_upper_bound"] = max(bounds)
         if s.beyond_limits:
             entry["beyond_limits"] = list(s.beyond_limits)
+        flagged = [f"{o['unit']} outside the fleet ({o['side']})" for o in s.outliers] + \
+            [f"{o['unit']} beyond the limit" for o in s.beyond_limits]
+        if flagged:
+            entry["warning"] = "; ".join(flagged)
         entry["per_unit"] = [{"unit": u.unit, "run": u.run, "date": u.date,
                               **({"upper_bound": u.upper} if u.is_bound else
                                  {"value": u.value, "ci95": [u.lower, u.upper]})}
                              for u in s.values]
         params.append(entry)
     return {
-        "fleet": {"tool": f"noisecal {__version__}", "db": str(db), "sensor": sensor,
+        "provenance": {"tool": f"noisecal {__version__}", "job": "fleet", "db": str(db),
+                       "sensor": sensor,
                   "units": list(units),
                   "date": _dt.datetime.now(_dt.timezone.utc).isoformat(timespec="seconds"),
                   "outlier_rule": "studentized deleted residual beyond the normal quantile "
@@ -497,7 +540,7 @@ def summary(result: FleetResult) -> str:
     """One line per parameter: median, spread, units outside."""
     lines = [f"fleet of {len(result.units)} unit(s) in {result.db}"
              + (f", sensor {result.sensor}" if result.sensor else "")]
-    for s in result.parameters:
+    for s in result.summaries:
         head = f"  {s.channel}.{s.name} [{s.unit}] ({s.job})"
         if s.fit is None:
             lines.append(f"{head}: fewer than two resolved values")
@@ -513,20 +556,30 @@ def summary(result: FleetResult) -> str:
         if s.beyond_limits:
             text += "; beyond the limit: " + ", ".join(o["unit"] for o in s.beyond_limits)
         slope = s.drift.get("slope_per_year")
-        if slope:
-            text += f"; drift {slope['value']:.3g} {slope['unit']}"
+        if slope and s.scale == "log":
+            lo, hi = slope["ci95"]
+            text += (f"; drift {100 * slope['value']:+.3g} %/year (95 %: {100 * lo:+.3g} … "
+                     f"{100 * hi:+.3g})")
+        elif slope:
+            text += (f"; drift {slope['value']:+.4g} {s.unit}/year (95 %: "
+                     f"{slope['ci95'][0]:+.4g} … {slope['ci95'][1]:+.4g})")
         lines.append(text)
     return "\n".join(history.printable(line) for line in lines)
 
 
 def run_fleet(db: str, out: str | None = None, sensor: str | None = None,
               limits: str | None = None, plot: str | None = None,
-              overwrite: bool = False) -> FleetResult:
-    """Summarise the fleet and write the YAML summary (and the PNG) atomically."""
+              overwrite: bool = False, report: str | None = None) -> FleetResult:
+    """Summarise the fleet and write the YAML summary, the PNG and the HTML report
+    (each optional) together, atomically; every path is checked before any work."""
     from ..export import yaml_block
 
     protect = [Path(db), Path(f"{db}-wal"), Path(f"{db}-shm")] + (
         [Path(limits)] if limits else [])
+    if report:
+        from ..export.html import check_report_path
+
+        report = check_report_path(report, protect, overwrite, [out, plot])
     for target in (out, plot):
         if target:
             check_target(Path(target), protect, overwrite)
@@ -540,10 +593,14 @@ def run_fleet(db: str, out: str | None = None, sensor: str | None = None,
             from ..export.fleet_plot import fleet_figure
 
             fleet_figure(result, staged.path(Path(plot)))
+        if report:
+            from ..export.html.report import render_job
+
+            staged.text(report, render_job(result, "noisecal fleet report"))
         if out:
             staged.text(Path(out), yaml_block.render(
                 result.sections, "noisecal fleet summary",
-                {"fleet": "Where the numbers come from.",
+                {"provenance": "Where the numbers come from.",
                  "parameters": "Per parameter: the fleet's median and spread with 95 % "
                  "intervals, units outside the fleet or a limit, drift by month."}))
         staged.commit()

@@ -134,10 +134,11 @@ def test_fleet_command_summarises_names_outliers_limits_and_drift(tmp_path):
     latest = _fleet_db(db)
     (tmp_path / "limits.yaml").write_text("limits: {gyro_x: {white_noise: {max: 2.6e-4}}}\n")
     status, out, err = _cli("fleet", "--db", db, "--sensor", "imu", "-o", tmp_path / "f.yaml",
-                            "--plot", tmp_path / "f.png", "--limits", tmp_path / "limits.yaml")
+                            "--plot", tmp_path / "f.png", "--limits", tmp_path / "limits.yaml",
+                            "--report", tmp_path / "f.html")
     assert status == 0, err
     doc = yaml.safe_load((tmp_path / "f.yaml").read_text())
-    assert doc["fleet"]["units"] == [f"F{i:02d}" for i in range(12)]
+    assert doc["provenance"]["units"] == [f"F{i:02d}" for i in range(12)]
     wn = next(p for p in doc["parameters"] if p["name"] == "white_noise")
     inside = [e for e in latest if e[0] != "F07"]  # the fit leaves the outlier out
     y = np.log([v for _, v, _, _ in inside])
@@ -163,6 +164,9 @@ def test_fleet_command_summarises_names_outliers_limits_and_drift(tmp_path):
     assert bi["median"] is None and bi["largest_upper_bound"] == pytest.approx(1.2e-4)
     assert (tmp_path / "f.png").stat().st_size > 10_000
     assert "outside the fleet: F07 (above)" in out
+    page = (tmp_path / "f.html").read_text()
+    assert "F07 outside the fleet (above)" in page and "data:image/png;base64," in page
+    assert f"{wn['median']['value']:.4g}" in page
 
 
 def test_fleet_bad_inputs_one_line(tmp_path):
