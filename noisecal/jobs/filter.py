@@ -135,13 +135,68 @@ def discretise(model: FilterModel, draws: int = DEFAULT_DRAWS, seed: int = 1,
         from ..model.jacobian import load_python, model_jacobians
 
         f, h = load_python(model.python)
-        jac = model_jacobians(f, h, model.x0, model.u0, len(model.sources),
-                              len(model.measurements), model.dt, model.python)
+        if model.trajectory is not None:
+            jac, traj = _along_trajectory(model, f, h)
+        else:
+            jac = model_jacobians(f, h, model.x0, model.u0, len(model.sources),
+                                  len(model.measurements), model.dt, model.python)
+            traj = None
         mx = linearised(model, jac, draws, seed)
+        mx["trajectory"] = traj
     else:
         mx = monte_carlo(model, draws, seed)
         mx["H"] = model.H
     return FilterResult(model, mx, jac, _sections(model, mx, jac, draws, seed, command))
+
+
+MAX_TRAJECTORY_ROWS = 5000
+"""Rows of a trajectory linearised (evenly thinned beyond)."""
+
+
+def _along_trajectory(model: FilterModel, f, h):
+    """Jacobians along a trajectory recording; the linearisation where trace(Q) peaks.
+
+    Returns
+    -------
+    jac : dict of str to Jacobian
+        At the row of largest trace(Q) (the most noise a single linearisation sees).
+    traj : dict
+        ``steps``, ``row``, ``x``, ``u``, ``Q_min``, ``Q_max``, ``R_min``, ``R_max``
+        (element-wise over the rows, at the noise values' points), ``thinned``.
+    """
+    from ..errors import InputError
+    from ..ingest import read_recording
+    from ..model.discretize import _point
+    from ..model.jacobian import Jacobian, along
+
+    rec = read_recording(model.trajectory)
+    missing = [s for s in model.states if s not in rec.channels]
+    if missing:
+        raise InputError(f"{model.trajectory}: no column for state(s) {', '.join(missing)}; "
+                         "a trajectory names its columns as the model's states (and inputs "
+                         "u_0, u_1, ...)")
+    X = np.column_stack([np.asarray(rec.channel(s), float) for s in model.states])
+    k = 0
+    while f"u_{k}" in rec.channels:
+        k += 1
+    U = (np.column_stack([np.asarray(rec.channel(f"u_{i}"), float) for i in range(k)])
+         if k else np.zeros((X.shape[0], 0)))
+    step = int(np.ceil(X.shape[0] / MAX_TRAJECTORY_ROWS))
+    rows = np.arange(0, X.shape[0], step)
+    J, worst = along(f, h, X[rows], U[rows], len(model.sources), len(model.measurements),
+                     model.dt, model.python)
+    dt = model.dt
+    var0 = np.array([_point(s.amplitude) ** 2 / (1.0 if s.kind == "variance" else dt)
+                     for s in model.sources])
+    sig2 = np.array([_point(mm.sigma) ** 2 for mm in model.measurements])
+    Qk = np.einsum("kis,kjs,s->kij", J["L"], J["L"], var0)
+    Rk = np.einsum("kis,kjs,s->kij", J["M"], J["M"], sig2)
+    best = int(np.argmax(np.trace(Qk, axis1=1, axis2=2)))
+    jac = {name: Jacobian(J[name][best], worst[name].method, worst[name].fd_max_difference,
+                          worst[name].scale) for name in J}
+    return jac, {"steps": int(rows.shape[0]), "row": int(rows[best]), "x": X[rows[best]],
+                 "u": U[rows[best]], "Q_min": Qk.min(0), "Q_max": Qk.max(0),
+                 "R_min": Rk.min(0), "R_max": Rk.max(0), "thinned": step}
 
 
 def _sections(model: FilterModel, mx: dict, jac, draws: int, seed: int, command: str) -> dict:
@@ -216,8 +271,26 @@ def _sections(model: FilterModel, mx: dict, jac, draws: int, seed: int, command:
         "noise": noise,
     }
     if jac is not None:
+        traj = mx.get("trajectory")
+        filt["noise_space"] = {
+            "note": ("what an EKF that re-linearises each step takes: Qw = Cov(w) per step "
+                     "(q/dt for a density), Rv = Cov(v); it forms L Qw L^T and M Rv M^T "
+                     "itself"),
+            "Qw": m(mx["Qw"]), "Qw_ci95": {"low": m(mx["Qw_low"]), "high": m(mx["Qw_high"])},
+            "Rv": m(mx["Rv"]), "Rv_ci95": {"low": m(mx["Rv_low"]), "high": m(mx["Rv_high"])}}
+        if traj is not None:
+            sections["trajectory"] = {
+                "path": model.trajectory, "rows_linearised": traj["steps"],
+                "every_nth_row": traj["thinned"],
+                "filter_matrices_at_row": traj["row"],
+                "why": "the row where trace(Q) is largest: the most noise one linearisation "
+                       "sees",
+                "Q_range": {"min": m(traj["Q_min"]), "max": m(traj["Q_max"])},
+                "R_range": {"min": m(traj["R_min"]), "max": m(traj["R_max"])}}
+        x_at = traj["x"] if traj is not None else model.x0
+        u_at = traj["u"] if traj is not None else model.u0
         sections["jacobians"] = {
-            "operating_point": {"x": vec(model.x0), "u": vec(model.u0)},
+            "operating_point": {"x": vec(x_at), "u": vec(u_at)},
             **{k: {"matrix": m(v.J), "method": v.method,
                    "max_difference_to_finite_differences": yaml_block.num(v.fd_max_difference),
                    "largest_entry": yaml_block.num(v.scale)} for k, v in jac.items()}}
@@ -232,6 +305,8 @@ _COMMENTS = {
     "noise": ("The noise sources: where each value came from, its density q and its\n"
               "part of Q."),
     "jacobians": "The Jacobians at the operating point, and their check.",
+    "trajectory": ("Q and R along the trajectory (element-wise range); the filter matrices\n"
+                   "above are taken at one row of it."),
 }
 
 

@@ -273,7 +273,14 @@ def linearised(model, jac: dict, draws: int = 2000, seed: int = 1, level: float 
                    for a0, s in zip(amp0, model.sources)])
     qcs = amps ** 2
     out = {"Phi": jac["F"].J, "Phi_low": jac["F"].J, "Phi_high": jac["F"].J, "Q": Q, "Qs": Qs,
-           "F": None, "qc": qc, "R": R, "H": jac["H"].J}
+           "F": None, "qc": qc, "R": R, "H": jac["H"].J,
+           # What an EKF that re-linearises every step takes: the noise-space covariances.
+           "Qw": np.diag(var0), "Rv": np.diag(sig0 ** 2)}
+    wlo, whi = np.quantile(var, [a, 1 - a], axis=0)
+    vlo, vhi = np.quantile(sigs ** 2, [a, 1 - a], axis=0)
+    out["Qw_low"], out["Qw_high"] = np.diag(np.fmin(wlo, var0)), np.diag(np.fmax(whi, var0))
+    out["Rv_low"], out["Rv_high"] = (np.diag(np.fmin(vlo, sig0 ** 2)),
+                                     np.diag(np.fmax(vhi, sig0 ** 2)))
     for key, point, sims in (("Q", Q, qs), ("R", R, rs), ("qc", qc, qcs)):
         lo, hi = np.nanquantile(sims, [a, 1 - a], axis=0)
         out[f"{key}_low"] = np.fmin(lo, point)

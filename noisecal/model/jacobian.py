@@ -221,3 +221,62 @@ def model_jacobians(f, h, x0: np.ndarray, u0: np.ndarray, n_w: int, n_v: int,
     hv = shape_checked(lambda v: h(x0, v), m, "h")
     return {"F": checked(fx, x0, f"{where}: df/dx"), "L": checked(fw, w0, f"{where}: df/dw"),
             "H": checked(hx, x0, f"{where}: dh/dx"), "M": checked(hv, v0, f"{where}: dh/dv")}
+
+
+def along(f, h, X: np.ndarray, U: np.ndarray, n_w: int, n_v: int, dt: float, where: str,
+          checks: int = 5):
+    """The four Jacobians at every row of a trajectory.
+
+    Each Jacobian is checked against central differences (:func:`checked`) at
+    ``checks`` rows spread over the trajectory; the method that passed there (complex
+    step, or central differences for a function without complex support) is used at
+    every row.
+
+    Parameters
+    ----------
+    X : ndarray, shape (K, n)
+        States along the trajectory.
+    U : ndarray, shape (K, k)
+        Inputs (k may be 0).
+    checks : int
+        Rows checked against central differences.
+
+    Returns
+    -------
+    J : dict of str to ndarray
+        ``F`` (K, n, n), ``L`` (K, n, n_w), ``H`` (K, m, n), ``M`` (K, m, n_v).
+    checked_rows : dict of str to Jacobian
+        The check at the row with the largest difference, per Jacobian.
+    """
+    K = X.shape[0]
+    rows = np.unique(np.linspace(0, K - 1, min(checks, K)).round().astype(int))
+    worst: dict = {}
+    for i in rows:
+        jac = model_jacobians(f, h, X[i], U[i], n_w, n_v, dt, f"{where} (row {i})")
+        for k, v in jac.items():
+            if k not in worst or v.fd_max_difference >= worst[k].fd_max_difference:
+                worst[k] = v
+    use_cs = {k: v.method == "complex step" for k, v in worst.items()}
+    w0, v0 = np.zeros(n_w), np.zeros(n_v)
+    out = {"F": [], "L": [], "H": [], "M": []}
+    for i in range(K):
+        x0, u0 = X[i], U[i]
+        funs = {"F": (lambda x: np.asarray(f(x, u0, w0, dt)).reshape(-1), x0),
+                "L": (lambda w: np.asarray(f(x0, u0, w, dt)).reshape(-1), w0),
+                "H": (lambda x: np.asarray(h(x, v0)).reshape(-1), x0),
+                "M": (lambda v: np.asarray(h(x0, v)).reshape(-1), v0)}
+        for k, (fun, at) in funs.items():
+            try:
+                out[k].append(complex_step(fun, at) if use_cs[k] else
+                              central_difference(fun, at))
+            except Exception as exc:
+                raise InputError(f"{where}: the model function failed at trajectory row {i} "
+                                 f"({type(exc).__name__}); check the model and that row") \
+                    from None
+    J = {k: np.array(v) for k, v in out.items()}
+    for k, v in J.items():
+        if not np.all(np.isfinite(v)):
+            bad = int(np.flatnonzero(~np.isfinite(v).reshape(K, -1).all(axis=1))[0])
+            raise InputError(f"{where}: {k} is not finite at trajectory row {bad}; check the "
+                             "model there")
+    return J, worst

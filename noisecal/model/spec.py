@@ -37,7 +37,7 @@ TERMS = ("white_noise", "bias_random_walk", "gauss_markov")
 """Static-block terms that are white-noise sources of a state-space model."""
 
 _TOP = {"states", "dt", "F", "Phi", "noise", "measurements", "filter_used", "python",
-        "operating_point", "units", "name"}
+        "operating_point", "trajectory", "units", "name"}
 
 
 @dataclass(frozen=True)
@@ -127,6 +127,9 @@ class FilterModel:
     inputs : tuple of dict
         The noisecal blocks read: path, sha256, checksum status.
     notes : tuple of str
+    trajectory : str or None
+        A recording of states (columns named as the states) and inputs (``u_0``,
+        ``u_1``, …) along which a Python model's Jacobians are taken.
     """
 
     path: str
@@ -146,6 +149,7 @@ class FilterModel:
     u0: np.ndarray | None = None
     inputs: tuple = ()
     notes: tuple = field(default_factory=tuple)
+    trajectory: str | None = None
 
     @property
     def n(self) -> int:
@@ -490,22 +494,36 @@ def read_model(path: str | Path) -> FilterModel:
                 r.fail(f"filter_used.{name}", "is not positive semidefinite")
         if np.linalg.eigvalsh(used_R).min() <= 0:
             r.fail("filter_used.R", "is singular: a Kalman filter needs R positive definite")
-    python = x0 = u0 = None
+    python = x0 = u0 = trajectory = None
     if form == "python":
         python = str((path.parent / r.text(doc["python"], "python")))
         if not Path(python).is_file():
             r.fail("python", f"no such Python model file {doc['python']!r} (relative to the "
                    "model file's folder); check the path")
-        op = doc.get("operating_point")
-        if not isinstance(op, dict) or "x" not in op:
-            r.fail("operating_point", "a Python model needs operating_point: {x: [...], "
-                   "u: [...]} where the Jacobians are taken")
-        x0 = r.vector(op["x"], n, "operating_point.x")
-        u = op.get("u", [])
-        if not isinstance(u, list):
-            r.fail("operating_point.u", "give a list of numbers (the input), or leave it out")
-        u0 = np.array([r.number(v, f"operating_point.u[{i}]") for i, v in enumerate(u)])
+        if ("operating_point" in doc) == ("trajectory" in doc):
+            r.fail("top level", "a Python model needs one of operating_point: {x: [...], "
+                   "u: [...]} or trajectory: a recording of the states (and inputs u_0, "
+                   "u_1, ...) where the Jacobians are taken")
+        if "trajectory" in doc:
+            trajectory = str(path.parent / r.text(doc["trajectory"], "trajectory"))
+            if not Path(trajectory).is_file():
+                r.fail("trajectory", f"no such recording {doc['trajectory']!r} (relative to "
+                       "the model file's folder); check the path")
+        else:
+            op = doc["operating_point"]
+            if not isinstance(op, dict) or "x" not in op or set(op) - {"x", "u"}:
+                r.fail("operating_point", "give {x: [...], u: [...]}: the state and input "
+                       "where the Jacobians are taken")
+            x0 = r.vector(op["x"], n, "operating_point.x")
+            u = op.get("u", [])
+            if not isinstance(u, list):
+                r.fail("operating_point.u", "give a list of numbers (the input), or leave "
+                       "it out")
+            u0 = np.array([r.number(v, f"operating_point.u[{i}]") for i, v in enumerate(u)])
+    elif "operating_point" in doc or "trajectory" in doc:
+        r.fail("top level", "operating_point and trajectory belong to a Python model; a "
+               "linear model (F or Phi) has neither")
     inputs = tuple({k: v for k, v in b.items() if k != "doc"} for b in r.blocks.values())
     return FilterModel(str(path), hashlib.sha256(data).hexdigest(), tuple(states),
                        tuple(units), dt, form, F, Phi, sources, measurements, used_Q, used_R,
-                       python, x0, u0, inputs, tuple(r.notes))
+                       python, x0, u0, inputs, tuple(r.notes), trajectory)

@@ -112,3 +112,53 @@ def test_wrong_output_size_is_one_line(tmp_path, run_cli):
         "  - {name: c, variance: 1.0}\n")
     status, _, err = run_cli("filter", tmp_path / "m.yaml", "-o", tmp_path / "q.yaml")
     assert status == 2 and "h returns 2 values" in err and err.count("\n") == 1
+
+
+SLIP = '''\
+import numpy as np
+
+
+def f(x, u, w, dt):
+    v = u[0] * (1 + w[0])            # slip: noise in proportion to speed
+    return np.array([x[0] + v * np.cos(x[2]) * dt, x[1] + v * np.sin(x[2]) * dt,
+                     x[2] + (u[1] + w[1]) * dt])
+
+
+def h(x, v):
+    return np.array([x[0] + v[0], x[1] + v[1]])
+'''
+
+
+def test_trajectory_linearises_every_row(tmp_path, run_cli):
+    """Along a recorded trajectory Q_k = L_k Qw L_k^T at every row, with L_k by hand
+    (calculus): the filter matrices are taken where trace(Q) peaks (the fastest row,
+    slip noise growing with speed), and the range spans the slowest to the fastest row."""
+    (tmp_path / "slip.py").write_text(SLIP)
+    t = np.arange(200) * 0.1
+    theta = 0.3 * t
+    speed = 1.0 + 0.5 * np.sin(0.2 * t)
+    rows = np.column_stack([t, 0.5 * t, 0.2 * t, theta, speed, np.full(200, 0.3)])
+    with open(tmp_path / "traj.csv", "w") as fh:
+        fh.write("time [s],px [m],py [m],theta [rad],u_0 [m/s],u_1 [rad/s]\n")
+        np.savetxt(fh, rows, delimiter=",", fmt="%.12g")
+    (tmp_path / "m.yaml").write_text(
+        "states: [px, py, theta]\ndt: 0.1\npython: slip.py\ntrajectory: traj.csv\n"
+        "noise:\n  - {name: slip, variance: 0.0004}\n  - {name: turn, density: 0.01}\n"
+        "measurements:\n  - {name: x, variance: 0.01}\n  - {name: y, variance: 0.01}\n")
+    status, out, err = run_cli("filter", tmp_path / "m.yaml", "-o", tmp_path / "q.yaml")
+    assert status == 0, err
+    doc = yaml.safe_load((tmp_path / "q.yaml").read_text())
+    k = int(np.argmax(speed))
+    assert doc["trajectory"]["filter_matrices_at_row"] == k
+
+    def q_at(i):
+        L = np.array([[speed[i] * np.cos(theta[i]) * 0.1, 0],
+                      [speed[i] * np.sin(theta[i]) * 0.1, 0], [0, 0.1]])
+        return L @ np.diag([0.0004, 0.01 ** 2 / 0.1]) @ L.T
+
+    assert np.allclose(doc["filter"]["Q"], q_at(k), rtol=1e-5, atol=1e-15)
+    lo = np.min([q_at(i) for i in range(200)], axis=0)
+    hi = np.max([q_at(i) for i in range(200)], axis=0)
+    assert np.allclose(doc["trajectory"]["Q_range"]["min"], lo, rtol=1e-5, atol=1e-15)
+    assert np.allclose(doc["trajectory"]["Q_range"]["max"], hi, rtol=1e-5, atol=1e-15)
+    assert doc["filter"]["noise_space"]["Qw"] == [[0.0004, 0.0], [0.0, 0.001]]
