@@ -4,7 +4,7 @@ Every figure is a ratio against a reference measured in the same run, on the
 same data: allantools for the deviations, one numpy reduction pass for the
 memory-speed limit, pandas.read_csv for ingest, and pandas.read_csv +
 allantools.oadev (10 taus a decade) for the static job on a 2 h CSV. Writes
-reports/bench.json and prints a table; ``--only allan,ingest,static-csv,static-day``
+reports/bench.json and prints a table; ``--only allan,ingest,static-csv,batch,static-day``
 runs a subset and writes reports/bench-partial.json instead. Data are simulated
 (fixed seeds); nothing here is a test.
 """
@@ -232,6 +232,73 @@ TARGETS = {
 }
 
 
+def bench_batch(results, folder: Path, rows: int = 12):
+    """Scaling of ``noisecal batch``: rows per minute with 1 and 2 local workers (the
+    whole command, cluster start-up included, which is also given alone), and the
+    per-row overhead of the Dask path against a plain loop over the same task body in
+    this process (warm: one row run first). Rows: static, 8192 samples at 100 Hz,
+    one channel, 60 bootstrap replicates."""
+    import logging
+    import shutil
+
+    from distributed import LocalCluster
+
+    from noisecal import history
+    from noisecal.jobs import batch
+
+    data = folder / "batch"
+    data.mkdir()
+    lines = ["job,recording,unit,sensor,options"]
+    for k in range(rows + 1):
+        y = np.random.default_rng(k).normal(0.0, 1e-3, 8192)
+        with open(data / f"u{k}.csv", "w") as fh:
+            fh.write("time [s],gyro_x [rad/s]\n")
+            np.savetxt(fh, np.column_stack([np.arange(y.size) * 0.01, y]), delimiter=",",
+                       fmt="%.9g")
+        lines.append(f"static,u{k}.csv,U{k},imu,reps=60 seed={k + 1}")
+    (data / "warm.csv").write_text("\n".join(lines[:2]) + "\n")
+    (data / "m.csv").write_text("\n".join(lines[:1] + lines[2:]) + "\n")
+    # Plain loop: the task body and the history write, one row after another.
+    warm = batch.read_manifest(data / "warm.csv")[0]
+    out = folder / "loop"
+    out.mkdir()
+    batch.run_row(warm, str(out), None, "warm")
+    entries = batch.read_manifest(data / "m.csv")
+    con = history.connect(out / "history.db")
+    t = time.perf_counter()
+    for row in entries:
+        batch._record(con, out / "history.db", out, row, batch.run_row(row, str(out), None,
+                                                                        "loop"))
+    t_loop = time.perf_counter() - t
+    con.close()
+    results["batch_rows"] = rows
+    results["batch_seconds_plain_loop"] = t_loop
+    for n in (1, 2):
+        t = time.perf_counter()
+        c = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
+                         host="127.0.0.1", dashboard_address=":0",
+                         silence_logs=logging.ERROR)
+        start = time.perf_counter() - t
+        c.close()
+        target = folder / f"dask{n}"
+        t = time.perf_counter()
+        res = batch.run_batch(data / "m.csv", target, workers=n, quiet=True)
+        total = time.perf_counter() - t
+        assert res.count("done") == rows, res.summary()
+        results[f"batch_seconds_cluster_start_{n}_workers"] = start
+        results[f"batch_seconds_{n}_workers"] = total
+        results[f"batch_rows_per_minute_{n}_workers"] = 60 * rows / total
+        shutil.rmtree(target)
+    results["batch_rows_per_minute_plain_loop"] = 60 * rows / t_loop
+    results["batch_speedup_2_over_1_workers"] = (results["batch_seconds_1_workers"]
+                                                 / results["batch_seconds_2_workers"])
+    # Per row, beyond the work itself and the cluster's start-up: scheduling, the
+    # fresh worker's imports and compiled-code loads, the transfer of the outcome.
+    results["batch_overhead_seconds_per_row_1_worker"] = (
+        results["batch_seconds_1_workers"] - results["batch_seconds_cluster_start_1_workers"]
+        - t_loop) / rows
+
+
 def main():
     results = {"machine": {"cpus": os.cpu_count(), "python": platform.python_version(),
                            "platform": platform.platform(),
@@ -249,6 +316,9 @@ def main():
         if run("static-csv"):
             print("static job on a 2 h CSV against pandas + allantools …", file=sys.stderr)
             bench_static_csv(results, folder)
+        if run("batch"):
+            print("batch scaling: plain loop, 1 and 2 local Dask workers …", file=sys.stderr)
+            bench_batch(results, folder)
         if "--quick" not in sys.argv and run("static-day"):
             print("static job on a day-long recording …", file=sys.stderr)
             bench_static(results, folder)
@@ -267,7 +337,7 @@ def main():
         print(f"{key:<34} {v['value']:>12.4g}  {v['target']:<10} {'yes' if v['met'] else 'NO'}")
     for key in sorted(results):
         if key.startswith(("static_day", "static_csv_seconds", "static_csv_peak_rss",
-                           "ingest_seconds", "ingest_time_over_pandas_one")):
+                           "ingest_seconds", "ingest_time_over_pandas_one", "batch_")):
             print(f"{key:<34} {results[key]:>12.4g}")
     print(f"wrote {out}")
 
