@@ -68,9 +68,16 @@ def job_figures(result) -> list[Figure]:
     if isinstance(result, MotionResult):
         from ..motion_plot import motion_figure
 
-        return [embed(drawn(lambda p: motion_figure(result, p)), "Residuals against truth",
-                      "Per channel: histogram with Gaussian and robust fits, QQ plot, "
-                      "residuals over time and against the covariate, autocorrelation.")]
+        out = [embed(motion_rows(result, j), f"{ch.name}: residuals against truth",
+                     "Histogram with Gaussian and robust fits, QQ plot against the inlier "
+                     "Gaussian, residuals over time and against the covariate, "
+                     "autocorrelation.") for j, ch in enumerate(result.model.channels)]
+        if len(result.model.order) >= 2:
+            out.append(embed(drawn(lambda p: motion_figure(result, p)), "All channels",
+                             "The plot beside the YAML block: every channel's row and the "
+                             "first two channels' residual scatter with the 1-σ ellipse of R "
+                             "and the gate."))
+        return out
     if isinstance(result, OdometryResult):
         from ..odometry_plot import odometry_figure
 
@@ -96,6 +103,24 @@ def job_figures(result) -> list[Figure]:
     if callable(own):
         return [embed(png, title, caption) for title, caption, png in own()]
     return []
+
+
+def motion_rows(result, j: int) -> bytes:
+    """One motion channel's five residual panels (the job plot's row), two a row."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure as MplFigure
+
+    from ..motion_plot import _channel_row
+
+    fig = MplFigure(figsize=(9.0, 9.6))
+    FigureCanvasAgg(fig)
+    axes = fig.subplots(3, 2).ravel()
+    _channel_row(axes, result, j)
+    axes[5].axis("off")
+    fig.tight_layout()
+    buf = io.BytesIO()
+    fig.savefig(buf, dpi=100, format="png")
+    return buf.getvalue()
 
 
 def allan_panel(model, dense, hadamard) -> bytes:

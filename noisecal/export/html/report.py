@@ -433,6 +433,8 @@ def job_page(result, title: str | None = None) -> dict:
         from ...jobs.recheck import RecheckResult, summary
 
         page["summary"] = summary(result) if isinstance(result, RecheckResult) else ""
+    page["has_customary"] = any(r["customary"] for r in page["headline"])
+    page["has_tau"] = any(r["tau"] for r in page["headline"])
     page["provenance"] = _provenance(sections, page.pop("extra_prov"))
     page["figures"] = job_figures(result)
     page["block"] = tree(sections)
@@ -466,7 +468,7 @@ def unit_page(serial: str, db: str, runs: list[dict]) -> dict:
     verdicts = [(str(r["run"]), r["date"], r["job"], r["verdict"]) for r in runs
                 if r["verdict"]]
     return {
-        "kind": "unit", "serial": serial, "title": f"noisecal unit report",
+        "kind": "unit", "serial": serial, "title": "noisecal unit report",
         "purpose": ("How this unit's noise has moved over time: each stored parameter with "
                     "its 95 % interval per run, and the re-check verdicts on the same time "
                     "axis."),
