@@ -137,6 +137,9 @@ def _parser() -> argparse.ArgumentParser:
                    help="do not read or write the binary cache of validated recordings")
     _ros_options(s)
     _output_options(s)
+    s.add_argument("--allan-points", choices=["inline", "sidecar"], default="inline",
+                   help="sidecar: the Allan point tables in OUT.allan.yaml beside the "
+                   "block, which stays short (default inline)")
     _report_option(s)
     _history_options(s)
 
@@ -192,6 +195,7 @@ def _parser() -> argparse.ArgumentParser:
     r.add_argument("-o", "--output",
                    help="YAML block to write (and a PNG beside it; - for standard output)")
     r.add_argument("--truth", help="the new drive's truth (motion and odometry baselines)")
+    _ros_options(r, truth=True)
     r.add_argument("--limits", help="engineering limits YAML: limits: {channel: {parameter: "
                    "{max: x}}} (SI)")
     r.add_argument("--tolerance", type=float, default=1.25,
@@ -435,7 +439,8 @@ def _run(args, command: str, recorder) -> int:
                                 args.repair, args.overwrite, args.reps, args.seed,
                                 args.quiet, command, use_cache=not args.no_cache,
                                 record=record, report=args.report, output_as=args.output_as,
-                                node=args.node, units=args.units)
+                                node=args.node, units=args.units,
+                                allan_points=args.allan_points)
             say(summary(result))
         elif args.command == "motion" and args.truth is None and args.truth_topic is None:
             raise InputError("motion needs the truth: --truth FILE, or --truth-topic TOPIC "
@@ -486,7 +491,10 @@ def _run(args, command: str, recorder) -> int:
             files = {k: getattr(args, k) for k in ("map", "config", "camera", "survey")
                      if getattr(args, k)}
             record = recorder("recheck")
-            result = run_recheck(args.baseline, args.recording, args.output, args.truth,
+            truth = _truth_arg(args) if args.truth or args.truth_topic else None
+            result = run_recheck(args.baseline,
+                                 _recording_arg(args.recording, args.topic, args.msgtype),
+                                 args.output, truth,
                                  args.limits, args.tolerance, args.overwrite,
                                  use_cache=not args.no_cache, command=command,
                                  alpha=args.alpha, files=files, poses=args.poses,

@@ -199,6 +199,119 @@ def ros_covariance(order, units, R) -> dict:
 
 OUTPUTS = ("noisecal", "ros")
 UNITS = ("si", "customary")
+ALLAN_POINTS = ("inline", "sidecar")
+POINTS_LAYOUT = "noisecal.allan_points/1"
+POINTS_KEY = "allan_points_file"
+"""Provenance key of a static block whose Allan point tables are in a side file."""
+
+
+def points_path(out, allan_points: str, output_as: str, inputs: list, overwrite: bool):
+    """Where the Allan point tables go (None: in the block), checked before any work.
+
+    ``OUT.yaml`` → ``OUT.allan.yaml`` beside it, with ``allan_points="sidecar"``.
+    """
+    from ..errors import InputError
+    from .atomic import STDOUT, check_target
+
+    if allan_points not in ALLAN_POINTS:
+        raise InputError(f"--allan-points {allan_points}: give one of {', '.join(ALLAN_POINTS)}")
+    if allan_points == "inline":
+        return None
+    if output_as != "noisecal":
+        raise InputError("--allan-points sidecar: a ROS parameter file holds no Allan "
+                         "points; leave it out with --as ros")
+    if out == STDOUT:
+        raise InputError("--allan-points sidecar: needs -o FILE.yaml to put the tables "
+                         "beside; leave it out with -o -")
+    path = Path(out).with_name(Path(out).stem + ".allan.yaml")
+    check_target(path, [Path(p) for p in inputs if p], overwrite)
+    return path
+
+
+def split_points(sections: dict, side: Path) -> tuple[dict, str]:
+    """The block without its Allan point tables, and the side file that holds them.
+
+    The block's provenance names the side file (relative to the block) and its
+    SHA-256, so the block's checksum covers the tables too.
+
+    Returns
+    -------
+    block : dict
+        Sections with ``channels.<ch>.allan_points`` left out and
+        ``provenance.allan_points_file: {path, sha256}`` added.
+    text : str
+        The side file: ``layout: noisecal.allan_points/1``, the input's sha256,
+        ``channels.<ch>: <table>``, its own checksum.
+    """
+    tables = {ch: e["allan_points"] for ch, e in sections["channels"].items()
+              if isinstance(e, dict) and "allan_points" in e}
+    doc = {"layout": POINTS_LAYOUT,
+           "input_sha256": sections["provenance"]["input"]["sha256"],
+           "channels": tables}
+    text = render(doc, f"noisecal Allan point tables ({POINTS_LAYOUT})", {
+        "channels": ("Per channel: the octave points the terms were fitted to (tau_s,\n"
+                     "deviation, ci95, EDF, noise type, terms). The block beside this file\n"
+                     "names it and its SHA-256.")})
+    chans = {ch: {k: v for k, v in e.items() if k != "allan_points"}
+             for ch, e in sections["channels"].items()}
+    prov = {**sections["provenance"],
+            POINTS_KEY: {"path": side.name,
+                         "sha256": hashlib.sha256(text.encode("utf-8")).hexdigest()}}
+    return {**sections, "provenance": prov, "channels": chans}, text
+
+
+def join_points(base: dict, folder: Path, where: str) -> dict:
+    """A block whose provenance names an Allan point side file, with the tables put back.
+
+    The side file is found relative to the block's folder; its SHA-256 must be the
+    one the (checksummed) block names.
+
+    Raises
+    ------
+    InputError
+        The side file is missing, unreadable, or not the one the block names.
+    """
+    from ..errors import InputError
+    from ..ingest.yaml_file import read_yaml
+
+    ref = (base.get("provenance") or {}).get(POINTS_KEY)
+    if ref is None:
+        return base
+    if not isinstance(ref, dict) or not isinstance(ref.get("path"), str):
+        raise InputError(f"{where}: 'provenance.{POINTS_KEY}' is damaged; re-run the job")
+    path = folder / ref["path"]
+    if not path.is_file():
+        raise InputError(f"{where}: its Allan point tables {path} are missing; keep the "
+                         ".allan.yaml file beside the block")
+    digest = hashlib.sha256(path.read_bytes()).hexdigest()
+    if digest != ref.get("sha256"):
+        raise InputError(f"{path}: not the Allan point file the block {where} names (SHA-256 "
+                         "differs: edited, or from another run); re-run the job")
+    side = read_yaml(path, "Allan point file")
+    tables = side.get("channels") if isinstance(side, dict) else None
+    if not isinstance(tables, dict):
+        raise InputError(f"{path}: no 'channels' tables; re-run the job")
+    chans = {}
+    for ch, e in (base.get("channels") or {}).items():
+        chans[ch] = {**e, "allan_points": tables[ch]} if isinstance(e, dict) and \
+            ch in tables else e
+    return {**base, "channels": chans}
+
+
+def outputs(result, out, output_as: str = "noisecal", node: str | None = None,
+            units: str = "si", points: Path | None = None) -> list:
+    """(path, text) of each file a static or motion job writes at ``-o`` (and beside it).
+
+    ``points``: the Allan point side file (:func:`points_path`), or None.
+    """
+    if points is None:
+        return [(out, render_output(result, None if out == "-" else out, output_as, node,
+                                    units))]
+    sections = result.sections
+    if units == "customary":
+        sections = with_input_units(sections, [result.recording])
+    block, side = split_points(sections, Path(points))
+    return [(points, side), (out, _render_sections(result, block, out))]
 
 
 def _in_unit(d: dict, si_unit: str, unit: str) -> dict | None:

@@ -260,8 +260,11 @@ def load_baseline(path: str, accept_edited: bool = False):
                 "does not match its checksum (edited by hand or damaged)")
         raise InputError(f"{path}: the baseline {what}; re-run the job that wrote it, or "
                          f"give {ACCEPT} if the edit is intended")
-    # An older static layout is read as the current one (yaml_block.migrate).
-    base = yaml_block.migrate(base)
+    # An older static layout is read as the current one (yaml_block.migrate), and Allan
+    # point tables kept beside the block are put back (the block's checksum covers
+    # their SHA-256).
+    base = yaml_block.join_points(yaml_block.migrate(base), Path(path).resolve().parent,
+                                  str(path))
     check_baseline(base, str(path))
     return base, state
 

@@ -435,7 +435,8 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
                overwrite: bool = False, reps: int = DEFAULT_REPS, seed: int = DEFAULT_SEED,
                quiet: bool = False, command: str = "", use_cache: bool = True,
                record=None, report: str | None = None, output_as: str = "noisecal",
-               node: str | None = None, units: str = "si") -> StaticResult:
+               node: str | None = None, units: str = "si",
+               allan_points: str = "inline") -> StaticResult:
     """Read, characterise and write the YAML block and the plot.
 
     Parameters
@@ -465,6 +466,9 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
         Node name of the ROS parameter file.
     units : {"si", "customary"}
         ``customary``: fitted numbers also in the input's units.
+    allan_points : {"inline", "sidecar"}
+        ``sidecar``: the Allan point tables in ``OUT.allan.yaml`` beside the block,
+        which names it and its SHA-256.
 
     Returns
     -------
@@ -473,6 +477,9 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
     out_path, plot_path = output_paths(out, plot, [path], overwrite,
                                        getattr(record, "paths", ()))
     report_path = _report_path(report, [path], overwrite, record, out_path, plot_path)
+    points_path = yaml_block.points_path(out_path, allan_points, output_as,
+                                         [path, plot_path, report_path]
+                                         + list(getattr(record, "paths", ())), overwrite)
     bars = StageBars(quiet)
     try:
         rec = read_recording(path, repair=repair, use_cache=use_cache, progress=bars)
@@ -491,8 +498,9 @@ def run_static(path: str, out: str, plot: str | None = None, dt: float | None = 
             from ..export.html import render_job
 
             staged.text(report_path, render_job(result))
-        staged.text(out_path, yaml_block.render_output(
-            result, None if out_path == STDOUT else out_path, output_as, node, units))
+        for target, text in yaml_block.outputs(result, out_path, output_as, node, units,
+                                               points_path):
+            staged.text(target, text)
         staged.commit(record(result) if record else None)
     return result
 

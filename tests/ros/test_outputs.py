@@ -160,3 +160,40 @@ def test_motion_from_one_bag_two_topics(tmp_path, run_cli):
     np.testing.assert_array_equal(cov, cov.T)
     status, _, err = run_cli("motion", bag, "--topic", "/pose", "-o", tmp_path / "n.yaml")
     assert status == 2 and "--truth-topic" in err
+
+
+def test_allan_points_sidecar(tmp_path, run_cli):
+    """--allan-points sidecar: the tables leave the block for OUT.allan.yaml, equal to the
+    inline ones; the block names the file and its SHA-256, a re-check reads the pair, and
+    an edited side file is refused in one line (common practice, no source)."""
+    rng = np.random.default_rng(11)
+    csv = tmp_path / "r.csv"
+    with open(csv, "w") as fh:
+        fh.write("time [s],gyro_x [rad/s]\n")
+        for k, v in enumerate(rng.normal(0.0, 1e-3, 2048)):
+            fh.write(f"{k * 0.01:.2f},{float(v)!r}\n")
+    common = ("--reps", "20", "--seed", "2", "--quiet")
+    assert run_cli("static", csv, "-o", tmp_path / "inline.yaml", *common)[0] == 0
+    status, _, err = run_cli("static", csv, "-o", tmp_path / "short.yaml",
+                             "--allan-points", "sidecar", *common)
+    assert status == 0, err
+    inline = yaml.safe_load((tmp_path / "inline.yaml").read_text())
+    short = yaml.safe_load((tmp_path / "short.yaml").read_text())
+    side = yaml.safe_load((tmp_path / "short.allan.yaml").read_text())
+    assert "allan_points" not in short["channels"]["gyro_x"]
+    assert side["channels"]["gyro_x"] == inline["channels"]["gyro_x"]["allan_points"]
+    ref = short["provenance"]["allan_points_file"]
+    assert ref["path"] == "short.allan.yaml"
+    import hashlib
+
+    assert ref["sha256"] == hashlib.sha256((tmp_path / "short.allan.yaml").read_bytes()
+                                           ).hexdigest()
+    assert yaml_block.verify(short) == "ok"
+    lines = lambda p: len((tmp_path / p).read_text().splitlines())  # noqa: E731
+    assert lines("short.yaml") <= lines("inline.yaml") - 8  # one table: 9 lines
+    status, out, err = run_cli("recheck", tmp_path / "short.yaml", csv)
+    assert status in (0, 1, 3) and "re-check (static)" in out, err
+    (tmp_path / "short.allan.yaml").write_text(
+        (tmp_path / "short.allan.yaml").read_text() + "# edited\n")
+    status, _, err = run_cli("recheck", tmp_path / "short.yaml", csv)
+    assert status == 2 and len(err.strip().splitlines()) == 1 and "SHA-256" in err
