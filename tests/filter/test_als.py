@@ -7,7 +7,7 @@ import pytest
 import yaml
 from scipy.linalg import solve_discrete_are, solve_discrete_lyapunov
 
-from noisecal.fit.als import _solve, als, design, identifiability, theoretical
+from noisecal.fit.als import _solve, design, identifiability, theoretical
 
 from . import sim
 from .blocks import write_log

@@ -162,3 +162,25 @@ def test_covariance_not_positive_definite(tmp_path, run_cli):
     status, _, err = run_cli("consistency", _cli_log(tmp_path, "log", nu, S), "--model",
                              tmp_path / "m.yaml", "-o", tmp_path / "c.yaml")
     assert status == 2 and "step 7" in err
+
+
+@pytest.mark.slow
+def test_false_alarm_rates_on_filterpy_runs(tmp_path):
+    """With the true Q and R, over 400 seeded filterpy runs (2000 steps) the NIS band and
+    the whiteness test each reject about 5 % (binomial 99.9 % range for 400 at 5 %:
+    9-35) and NEES, whose band rests on an estimated effective number of steps, at most
+    12 % (Bar-Shalom et al. 2001, §5.4; the definition of a 95 % band)."""
+    from noisecal.analysis.innovations import normalised_squares
+
+    nis_out = nees_out = white_out = 0
+    runs = 400
+    for seed in range(runs):
+        x, z = sim.truth(0.5, 0.04, 2000, np.random.default_rng(5000 + seed))
+        nu, S, xs, Ps = sim.run_filterpy(z, 0.5, 0.04)
+        q, w = normalised_squares(nu[:, None], S[:, None, None])
+        nis_out += chi_square_test([q], 1).verdict != "within"
+        white_out += not whiteness([w], 10).white
+        e, _ = normalised_squares(x - xs, Ps)
+        nees_out += chi_square_test([e], 2, "NEES", correlated=True).verdict != "within"
+    print(f"false alarms over {runs}: NIS {nis_out}, whiteness {white_out}, NEES {nees_out}")
+    assert 9 <= nis_out <= 35 and white_out <= 35 and nees_out <= 0.12 * runs
