@@ -159,14 +159,12 @@ def _write_mcap_lib(path: Path, d: ImuData, topic: str) -> Path:
         for i in _record_order(d):
             s = int(d.stamps[i])
             vec = lambda v: {"x": float(v[0]), "y": float(v[1]), "z": float(v[2])}  # noqa: E731
+            cov = {k: [float(v) for v in a] for k, a in d.covariances.items()}
             msg = {"header": {"stamp": {"sec": s // 10**9, "nanosec": s % 10**9},
                               "frame_id": "imu"},
                    "orientation": dict(zip("xyzw", map(float, d.quat[i]))),
-                   "orientation_covariance": list(map(float, d.covariances["orientation_covariance"])),
                    "angular_velocity": vec(d.gyro[i]),
-                   "angular_velocity_covariance": list(map(float, d.covariances["angular_velocity_covariance"])),
-                   "linear_acceleration": vec(d.accel[i]),
-                   "linear_acceleration_covariance": list(map(float, d.covariances["linear_acceleration_covariance"]))}
+                   "linear_acceleration": vec(d.accel[i]), **cov}
             writer.write_message(topic, schema, msg, log_time=int(d.recorded[i]),
                                  publish_time=int(d.recorded[i]))
         writer.finish()
