@@ -127,12 +127,11 @@ def topics(path: str | Path) -> dict:
 def _choose(path: Path, have: dict, topic: str | None, msgtype: str | None) -> str:
     """The topic to read, refused in one line (with the list) when missing or ambiguous."""
     if topic is None:
-        known = [t for t, m in have.items() if m in LAYOUTS]
-        if len(have) == 1 and known:
-            topic = known[0]
-        else:
-            raise InputError(f"{path}: a bag holds several topics; choose one with --topic "
+        if len(have) != 1:
+            what = "no topics" if not have else "several topics"
+            raise InputError(f"{path}: the bag holds {what}; choose one with --topic "
                              f"(topics: {_listing(have)})")
+        topic = next(iter(have))
     if topic not in have:
         raise InputError(f"{path}: no topic {topic!r} in the bag; choose one with --topic "
                          f"(topics: {_listing(have)})")

@@ -59,6 +59,9 @@ def test_record_minus_stamp_delay_reported(bags, data):
     assert f"median {np.median(d):.6g} s" in line
     assert f"{d.min():.6g} … {d.max():.6g} s" in line
     assert any("header.stamp (the measurement instant)" in n for n in rec.source.notes)
+    # A bag of one topic needs no --topic.
+    alone = read_recording(bags["ros2-mcap"])
+    assert alone.channels == rec.channels and alone.source.sha256 == rec.source.sha256
 
 
 def test_orientation_as_roll_pitch_yaw(bags, data):
