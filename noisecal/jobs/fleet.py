@@ -81,7 +81,7 @@ def _q_gen(y, v, tau2) -> float:
     return float(np.sum(w * (y - mu) ** 2))
 
 
-def random_effects(y, v) -> RandomEffects:
+def random_effects(y, v, profile: bool = True) -> RandomEffects:
     """Fleet mean and between-unit spread from estimates and their variances.
 
     Parameters
@@ -90,6 +90,9 @@ def random_effects(y, v) -> RandomEffects:
         Each unit's estimate (log scale for positive coefficients).
     v : array_like, shape (k,)
         Their sampling variances (from each unit's interval: ((hi − lo)/(2·1.96))²).
+    profile : bool
+        Compute τ²'s Q-profile interval (NaN otherwise: the leave-one-out fits need
+        only τ²).
 
     Returns
     -------
@@ -117,7 +120,7 @@ def random_effects(y, v) -> RandomEffects:
     mu, wr = _weighted_mean(y, v, tau2)
     se = math.sqrt(np.sum(wr * (y - mu) ** 2) / ((k - 1) * np.sum(wr)))
     t = stats.t.ppf(0.975, k - 1)
-    lo_t2, hi_t2 = _q_profile(y, v, k)
+    lo_t2, hi_t2 = _q_profile(y, v, k) if profile else (math.nan, math.nan)
     if k >= 3:
         tp = stats.t.ppf(0.975, k - 2)
         half = tp * math.sqrt(tau2 + se ** 2)
@@ -285,7 +288,7 @@ def _leave_one_out(y, v) -> np.ndarray:
     t = np.zeros(k)
     for i in range(k):
         keep = np.arange(k) != i
-        fit = random_effects(y[keep], v[keep])
+        fit = random_effects(y[keep], v[keep], profile=False)
         t[i] = (y[i] - fit.mu) / math.sqrt(v[i] + fit.tau2 + fit.se ** 2)
     return t
 

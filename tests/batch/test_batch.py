@@ -273,15 +273,16 @@ def _stop(proc: subprocess.Popen, sig=signal.SIGTERM, wait: float = 60.0) -> Non
 
 
 def test_interrupted_batch_resumes_without_redoing_finished_rows(tmp_path, cluster):
-    """A batch stopped by SIGTERM after its first stored runs: the rerun keeps those
-    runs (reported unchanged, same ids), runs the rest, and the history ends with every
-    row once."""
+    """A batch (its own process, on the shared cluster) stopped by SIGTERM after its
+    first stored runs: it exits 143 without a traceback; the rerun keeps those runs
+    (reported unchanged, same ids), runs the rest, and the history ends with every row
+    once."""
     manifest = _interruptible_manifest(tmp_path)
     out = tmp_path / "out"
     db = out / "history.db"
     exe = Path(sys.executable).parent / "noisecal"
-    proc = subprocess.Popen([str(exe), "batch", str(manifest), "-o", str(out), "--workers",
-                             "1", "--quiet"], stdout=subprocess.PIPE,
+    proc = subprocess.Popen([str(exe), "batch", str(manifest), "-o", str(out),
+                             "--scheduler", cluster, "--quiet"], stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, start_new_session=True,
                             preexec_fn=lambda: signal.signal(signal.SIGINT, signal.SIG_DFL))
     try:
