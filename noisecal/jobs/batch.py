@@ -544,10 +544,13 @@ def _stored(con, run_id, stamp: dict) -> bool:
                                                  stamp.get("job"), stamp.get("date")]
 
 
-def _known(con, outdir: Path, row: Row):
+def _known(store, outdir: Path, row: Row):
     """(digest, run id) of the row's stored run when its stamp, files and history row
     agree; None otherwise. A stamp whose run is not in the history (the batch stopped
     between the two) counts as not done."""
+    con = store.existing
+    if con is None:
+        return None
     try:
         stamp = json.loads(_stamp_path(outdir, row).read_text(encoding="utf-8"))
         files = [outdir / row.unit / name for name in stamp["files"]]
@@ -581,6 +584,28 @@ def _record(con, db: Path, outdir: Path, row: Row, outcome: Outcome) -> tuple:
     outputs = tuple(str(folder / n) for n in names)
     WRITTEN.extend(outputs)
     return run_id, outputs
+
+
+class _History:
+    """The history database: an existing one opened (validated, migrated) now, before
+    any work; a new one only checked now and created when the first run is stored, so
+    that a batch refused early leaves no database behind."""
+
+    def __init__(self, path: Path):
+        self.path = path
+        self.existing = history.connect(path) if path.exists() else None
+        if self.existing is None:
+            history.check_new(path)
+
+    @property
+    def con(self):
+        if self.existing is None:
+            self.existing = history.connect(self.path)
+        return self.existing
+
+    def close(self) -> None:
+        if self.existing is not None:
+            self.existing.close()
 
 
 class _Lock:
@@ -677,28 +702,33 @@ def run_batch(manifest: str | Path, outdir: str | Path, db: str | Path | None = 
     """
     say = say or (lambda text: None)
     outdir = Path(outdir)
-    if not outdir.is_dir():
-        if outdir.exists() or not outdir.resolve().parent.is_dir():
-            raise InputError(f"-o {outdir}: not a folder, or its parent does not exist; "
-                             "give a folder (it is created inside an existing one)")
-        outdir.mkdir()
+    if not outdir.is_dir() and (outdir.exists() or not outdir.resolve().parent.is_dir()):
+        raise InputError(f"-o {outdir}: not a folder, or its parent does not exist; "
+                         "give a folder (it is created inside an existing one)")
     db = Path(db) if db else outdir / "history.db"
     entries = read_manifest(manifest)
+    created = not outdir.exists()
+    if created:
+        outdir.mkdir()
     lock = _Lock(outdir)
     try:
         for old in outdir.glob(f"{STAGING}*"):  # a stopped batch's leftovers
             shutil.rmtree(old, ignore_errors=True)
-        con = history.connect(db)
+        store = _History(db)
         try:
-            return _run(entries, outdir, db, con, scheduler, workers, overwrite, quiet,
+            return _run(entries, outdir, db, store, scheduler, workers, overwrite, quiet,
                         command, say)
         finally:
-            con.close()
+            store.close()
     finally:
         lock.release()
+        if created and [p.name for p in outdir.iterdir()] == [LOCK]:
+            # Nothing was stored: leave nothing behind (a refused scheduler, Ctrl-C).
+            (outdir / LOCK).unlink(missing_ok=True)
+            outdir.rmdir()
 
 
-def _run(entries, outdir, db, con, scheduler, workers, overwrite, quiet, command, say):
+def _run(entries, outdir, db, store, scheduler, workers, overwrite, quiet, command, say):
     reports: dict = {}
     todo = []  # (row, known digest)
     known_runs: dict = {}
@@ -706,7 +736,7 @@ def _run(entries, outdir, db, con, scheduler, workers, overwrite, quiet, command
         if isinstance(e, RowReport):
             reports[id(e)] = e
             continue
-        k = None if overwrite else _known(con, outdir, e)
+        k = None if overwrite else _known(store, outdir, e)
         if k is not None:
             known_runs[e.index] = k[1]
         elif not overwrite and not _stamp_path(outdir, e).exists():
@@ -726,7 +756,7 @@ def _run(entries, outdir, db, con, scheduler, workers, overwrite, quiet, command
             dashboard = _dashboard(client, cluster is not None)
             if dashboard:
                 say(f"Dask dashboard: {dashboard}")
-            _submit(client, todo, outdir, db, con, token, command, quiet, say, reports,
+            _submit(client, todo, outdir, db, store, token, command, quiet, say, reports,
                     known_runs)
         finally:
             for old in outdir.glob(f"{STAGING}{token}-*"):
@@ -742,7 +772,8 @@ def _run(entries, outdir, db, con, scheduler, workers, overwrite, quiet, command
     return BatchResult(tuple(ordered), str(outdir), str(db), where, dashboard)
 
 
-def _submit(client, todo, outdir, db, con, token, command, quiet, say, reports, known_runs):
+def _submit(client, todo, outdir, db, store, token, command, quiet, say, reports,
+            known_runs):
     """Submit the rows, store each done one as it arrives (the client's only writes)."""
     from distributed import as_completed
 
@@ -765,7 +796,7 @@ def _submit(client, todo, outdir, db, con, token, command, quiet, say, reports, 
                 outcome = Outcome(index, "failed", error=(
                     f"{row.where}: the worker running this row was lost "
                     f"({type(exc).__name__}); run the batch again to retry it"))
-            reports[index] = _report(con, db, outdir, row, outcome, known_runs)
+            reports[index] = _report(store, db, outdir, row, outcome, known_runs)
             r = reports[index]
             text = {"done": f"done, run {r.run_id}",
                     "unchanged": f"unchanged, run {r.run_id} kept",
@@ -786,7 +817,7 @@ def _submit(client, todo, outdir, db, con, token, command, quiet, say, reports, 
                 f.cancel()
 
 
-def _report(con, db, outdir, row, outcome, known_runs) -> RowReport:
+def _report(store, db, outdir, row, outcome, known_runs) -> RowReport:
     if outcome.status == "unchanged":
         files = _targets(outdir, row)
         return RowReport(row, row.where, "unchanged", run_id=known_runs.get(row.index),
@@ -794,7 +825,7 @@ def _report(con, db, outdir, row, outcome, known_runs) -> RowReport:
     if outcome.status == "failed":
         return RowReport(row, row.where, "failed", outcome.error)
     try:
-        run_id, outputs = _record(con, db, outdir, row, outcome)
+        run_id, outputs = _record(store.con, db, outdir, row, outcome)
     except NoisecalError as exc:
         shutil.rmtree(outcome.staging, ignore_errors=True)
         return RowReport(row, row.where, "failed", f"{row.where}: {exc}")

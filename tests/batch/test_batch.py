@@ -403,3 +403,15 @@ def test_manifest_rows_refused_before_any_work(tmp_path):
     assert messages[2] is None and "the same unit, sensor and job as" in messages[3]
     assert "does not read a truth file" in messages[4]
     assert "is not one of static, motion" in messages[5]
+
+
+def test_an_unusable_scheduler_is_one_line_and_nothing_written(first_batch, tmp_path):
+    """A scheduler address that cannot be used: status 2, one line naming the option,
+    no output folder, no history database left behind."""
+    root, manifest, *_ = first_batch
+    out = tmp_path / "never"
+    status, text, err = _cli("batch", manifest, "-o", out, "--scheduler",
+                             "tcp://127.0.0.1:notaport")
+    assert status == 2 and err.startswith("noisecal: error: --scheduler tcp://127.0.0.1:")
+    assert len(err.strip().splitlines()) == 1 and "Traceback" not in err
+    assert not out.exists()
