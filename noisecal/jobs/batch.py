@@ -735,6 +735,7 @@ def _run(entries, outdir, db, store, scheduler, workers, overwrite, quiet, comma
     for e in entries:
         if isinstance(e, RowReport):
             reports[id(e)] = e
+            say(e.message)
             continue
         k = None if overwrite else _known(store, outdir, e)
         if k is not None:

@@ -10,6 +10,7 @@ one, and one batch run on the default local cluster serves the checks of its out
 from __future__ import annotations
 
 import contextlib
+import csv
 import io
 import json
 import os
@@ -28,13 +29,15 @@ import yaml
 pytest.importorskip("distributed")
 
 import noisecal  # noqa: E402
-from noisecal.api import batch  # noqa: E402
+from noisecal.api import batch, recheck  # noqa: E402
+from noisecal.export import yaml_block  # noqa: E402
 from noisecal import history  # noqa: E402
 from noisecal.cli import main  # noqa: E402
 from noisecal.jobs.batch import STAGING, read_manifest  # noqa: E402
 from tests.conftest import rate_csv  # noqa: E402
 from tests.motion.test_job import write_pair  # noqa: E402
 
+ROOT = Path(__file__).resolve().parents[2]
 GOOD = 8
 """Static rows that must succeed: units U0..U7, seed k+1, 20 replicates."""
 
@@ -44,27 +47,45 @@ def _good_recording(folder: Path, k: int, scale: float = 1.0) -> Path:
     return rate_csv(folder / f"u{k}.csv", y, 0.01)
 
 
+ENCODER = ("encoder_ticks.csv", "encoder_truth.csv", "encoder_config.yaml")
+"""The committed odometry demo (tools/make_drive_recordings.py), small enough to rerun."""
+
+
 def _make_fleet(root: Path) -> Path:
-    """Recordings and a manifest: 8 static rows, one motion row, 5 bad rows."""
+    """Recordings and a manifest: 8 static rows, a motion, an odometry and a re-check
+    row (against a baseline block made here from the odometry demo), 5 bad rows."""
     data = root / "data"
     data.mkdir()
-    rows = ["job,recording,unit,sensor,truth,options"]
+    rows = [["job", "recording", "unit", "sensor", "truth", "config", "baseline",
+             "options"]]
     for k in range(GOOD):
         _good_recording(data, k)
-        rows.append(f"static,u{k}.csv,U{k},imu,,reps=20 seed={k + 1}")
+        rows.append(["static", f"u{k}.csv", f"U{k}", "imu", "", "", "", f"reps=20 seed={k + 1}"])
     drive = data / "drive"
     drive.mkdir()
     write_pair(drive)
-    rows.append("motion,drive/sensor.csv,M1,line,drive/truth.csv,seed=2")
+    rows.append(["motion", "drive/sensor.csv", "M1", "line", "drive/truth.csv", "", "",
+                 "seed=2"])
+    enc = data / "enc"
+    enc.mkdir()
+    for name in ENCODER:
+        shutil.copy(ROOT / "recordings" / name, enc / name)
+    noisecal.odometry(enc / ENCODER[0], truth=enc / ENCODER[1],
+                      config=enc / ENCODER[2]).write(enc / "baseline.yaml")
+    rows.append(["odometry", "enc/encoder_ticks.csv", "O1", "wheels", "enc/encoder_truth.csv",
+                 "enc/encoder_config.yaml", "", "max_offset=0.5"])
+    rows.append(["recheck", "enc/encoder_ticks.csv", "O1", "wheels", "enc/encoder_truth.csv",
+                 "", "enc/baseline.yaml", "tolerance=1.5"])
     (data / "short.csv").write_text("time [s],gyro_x [rad/s]\n0,1\n0.01,2\n0.02,3\n")
     (data / "badunit.csv").write_text("time [s],gyro_x [zorks]\n"
                                       + "".join(f"{i / 100},{i}\n" for i in range(50)))
-    rows += ["static,short.csv,B1,imu,,",            # too short: AnalysisError
-             "static,nowhere.csv,B2,imu,,",          # missing file
-             "static,u0.csv,B3,imu,,reps=many",      # bad option value
-             "motion,u0.csv,B4,imu,,",               # motion without truth
-             "static,badunit.csv,B5,imu,,"]          # unknown unit
-    (data / "fleet.csv").write_text("\n".join(rows) + "\n")
+    rows += [["static", "short.csv", "B1", "imu", "", "", "", ""],     # too short
+             ["static", "nowhere.csv", "B2", "imu", "", "", "", ""],   # missing file
+             ["static", "u0.csv", "B3", "imu", "", "", "", "reps=many"],  # bad option value
+             ["motion", "u0.csv", "B4", "imu", "", "", "", ""],        # motion without truth
+             ["static", "badunit.csv", "B5", "imu", "", "", "", ""]]   # unknown unit
+    with open(data / "fleet.csv", "w", newline="") as fh:
+        csv.writer(fh).writerows(rows)
     return data / "fleet.csv"
 
 
@@ -138,7 +159,20 @@ def alone(first_batch):
     res = noisecal.motion(manifest.parent / "drive" / "sensor.csv",
                           truth=manifest.parent / "drive" / "truth.csv", seed=2)
     out["M1"] = (res, yaml.safe_load(res._render()))
+    enc = manifest.parent / "enc"
+    res = noisecal.odometry(enc / ENCODER[0], truth=enc / ENCODER[1], config=enc / ENCODER[2],
+                            max_offset=0.5)
+    out["O1"] = (res, yaml.safe_load(res._render()))
+    res = recheck(enc / "baseline.yaml", enc / ENCODER[0], truth=enc / ENCODER[1],
+                  tolerance=1.5)
+    out["R1"] = (res, yaml.safe_load(yaml_block.render(res.sections)))
     return out
+
+
+def _content(doc: dict) -> dict:
+    """A block without what differs between two runs of the same job (date, command,
+    paths as written) and the checksum over them."""
+    return {k: v for k, v in doc.items() if k not in ("provenance", "checksum")}
 
 
 def _assert_same_as_alone(alone: dict, out: Path) -> None:
@@ -149,6 +183,11 @@ def _assert_same_as_alone(alone: dict, out: Path) -> None:
     batch = _doc(out / "M1" / "line.motion.yaml")
     for section in ("alignment", "measurement"):
         assert batch[section] == alone["M1"][1][section], section
+    assert _content(_doc(out / "M1" / "line.motion.yaml")) == _content(alone["M1"][1])
+    assert _content(_doc(out / "O1" / "wheels.odometry.yaml")) == _content(alone["O1"][1])
+    rechecked = _doc(out / "O1" / "wheels.recheck.yaml")
+    assert rechecked["verdict"] == alone["R1"][0].verdict
+    assert _content(rechecked) == _content(alone["R1"][1])
 
 
 def test_local_batch_gives_each_job_alone_results(first_batch, alone):
@@ -164,11 +203,11 @@ def test_local_batch_gives_each_job_alone_results(first_batch, alone):
 
 def test_bad_rows_are_reported_in_one_line_and_the_others_done(first_batch):
     """Each bad row is named with its manifest line and its one-line error, nothing is
-    written for it, no traceback; the summary counts 9 done and 5 failed."""
+    written for it, no traceback; the summary counts 11 done and 5 failed."""
     root, manifest, status, out, err = first_batch
     text = out + err
     assert "Traceback" not in text
-    assert "14 rows on local (2 workers): 9 done, 0 unchanged (skipped), 5 failed" in text
+    assert "16 rows on local (2 workers): 11 done, 0 unchanged (skipped), 5 failed" in text
     lines = [ln for ln in text.splitlines() if ln.startswith("  ")]
     for unit, fragment in BAD.items():
         line = next(ln for ln in lines if fragment in ln)
@@ -194,12 +233,13 @@ def test_history_holds_every_run_once(first_batch, alone):
                     else (e.value, e.lower, e.upper, False))
             assert stored[(p.channel, p.name)] == want, p.name
     assert len(_runs(db, "M1")) == 1
+    assert sorted(r["job"] for r in _runs(db, "O1")) == ["motion --odometry", "recheck"]
     con = sqlite3.connect(db)
     try:
         units = [u for (u,) in con.execute("SELECT unit FROM runs ORDER BY unit")]
     finally:
         con.close()
-    assert units == sorted(["M1"] + [f"U{k}" for k in range(GOOD)])
+    assert units == sorted(["M1", "O1", "O1"] + [f"U{k}" for k in range(GOOD)])
 
 
 def test_rerun_skips_unchanged_rows_and_redoes_a_changed_input(copy_of_first, cluster):
@@ -220,6 +260,8 @@ def test_rerun_skips_unchanged_rows_and_redoes_a_changed_input(copy_of_first, cl
         else:
             assert r.status == "unchanged" and r.run_id == before[f"U{k}"]
     assert by_unit["M1"].status == "unchanged"
+    assert [r.status for r in res.rows if r.row is not None and r.row.unit == "O1"] == [
+        "unchanged", "unchanged"]
     assert res.count("failed") == 5 and res.exit_status == 1
     assert [len(_runs(db, f"U{k}")) for k in range(GOOD)] == [1, 1, 1, 2, 1, 1, 1, 1]
     again = _doc(out / "U3" / "imu.static.yaml")["channels"]
@@ -349,7 +391,7 @@ def test_external_scheduler_and_worker_give_the_same_results(first_batch, alone,
         status, text, err = _cli("batch", manifest, "-o", out, "--scheduler", address,
                                  "--quiet")
         assert status == 1, err
-        assert f"14 rows on {address}: 9 done, 0 unchanged (skipped), 5 failed" in text
+        assert f"16 rows on {address}: 11 done, 0 unchanged (skipped), 5 failed" in text
         _assert_same_as_alone(alone, out)
         for k in range(GOOD):
             assert len(_runs(out / "history.db", f"U{k}")) == 1
