@@ -423,6 +423,9 @@ def batch(manifest, *, output, db=None, scheduler: str | None = None,
     if scheduler is not None and not isinstance(scheduler, str):
         raise ParameterError("scheduler", scheduler, "give an address such as "
                              "'tcp://127.0.0.1:8786'")
+    if scheduler and workers is not None:
+        raise ParameterError("workers", workers, "sets the local cluster's processes; a "
+                             "running cluster (scheduler) has its own workers, leave it out")
     return run_batch(_path("manifest", manifest), _path("output", output),
                      None if db is None else _path("db", db), scheduler or None, workers,
                      bool(overwrite), not progress, command, say)

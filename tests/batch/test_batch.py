@@ -108,7 +108,13 @@ def first_batch(tmp_path_factory):
     (two worker processes: the machine's cores are shared)."""
     root = tmp_path_factory.mktemp("fleet")
     manifest = _make_fleet(root)
-    status, out, err = _cli("batch", manifest, "-o", root / "out", "--workers", 2, "--quiet")
+    named = os.environ.pop("NOISECAL_SCHEDULER", None)  # the default cluster, not a named one
+    try:
+        status, out, err = _cli("batch", manifest, "-o", root / "out", "--workers", 2,
+                                "--quiet")
+    finally:
+        if named is not None:
+            os.environ["NOISECAL_SCHEDULER"] = named
     return root, manifest, status, out, err
 
 
