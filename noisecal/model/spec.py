@@ -384,6 +384,59 @@ def _measurement(r: _Reader, entry, j: int, n: int, linear: bool, dt: float) -> 
            "measurement nor a static block's channel)")
 
 
+def _check_units(r: _Reader, states: list, units: list, sources: tuple,
+                 measurements: tuple) -> None:
+    """Where states and values both carry units: states SI, and every source's density
+    of the dimension its state needs (q·dt in state units squared), every measurement's
+    sigma in the measurement's unit. This is what catches N²/dt against N²·dt."""
+    if not any(units) and not any(mm.unit for mm in measurements):
+        return
+    from ..errors import UnitError
+    from ..units import parse_unit, registry
+
+    ureg = registry()
+
+    def q(unit: str, where: str):
+        try:
+            return ureg.Quantity(1.0, parse_unit(unit, where))
+        except UnitError as exc:
+            r.fail(where, str(exc).split(": ", 1)[-1])
+
+    for i, (name, u) in enumerate(zip(states, units)):
+        if u:
+            base = q(u, f"states[{i}] unit").to_base_units()
+            if abs(base.magnitude - 1.0) > 1e-12:
+                r.fail(f"states[{i}]", f"unit [{u}] is not SI (1 {u} = {base.magnitude:.6g} "
+                       f"{base.units:~}); noisecal's values are SI: write the SI unit")
+    for i, src in enumerate(sources):
+        if src.g is None or not src.amplitude.unit:
+            continue
+        amp = q(src.amplitude.unit, f"noise[{i}] ({src.origin}) unit")
+        for k in np.flatnonzero(src.g):
+            if not units[k]:
+                continue
+            state = q(units[k], f"states[{k}] unit")
+            if src.kind == "gauss_markov":
+                need, have = state.dimensionality, amp.dimensionality
+                what = f"sigma [{src.amplitude.unit}]"
+            else:
+                need = (state ** 2).dimensionality
+                have = (amp ** 2 * ureg.second).dimensionality
+                what = (f"q*dt = ({src.amplitude.unit})^2*s" if src.kind == "density"
+                        else f"the variance [({src.amplitude.unit})^2]")
+                if src.kind == "variance":
+                    have = (amp ** 2).dimensionality
+            if need != have:
+                r.fail(f"noise[{i}]", f"{src.name}: {what} is not in [({units[k]})^2] of "
+                       f"state {states[k]} that its G drives; check G (a rate noise "
+                       "drives the state it is the rate of) or the state's unit")
+    for j, mm in enumerate(measurements):
+        if mm.unit and mm.sigma.unit and q(mm.unit, f"measurements[{j}].unit").dimensionality \
+                != q(mm.sigma.unit, f"measurements[{j}] ({mm.origin}) unit").dimensionality:
+            r.fail(f"measurements[{j}]", f"{mm.name}: sigma is [{mm.sigma.unit}] but the "
+                   f"measurement is [{mm.unit}]; check the block's channel")
+
+
 def read_model(path: str | Path) -> FilterModel:
     """Read and check a filter model file.
 
@@ -523,6 +576,7 @@ def read_model(path: str | Path) -> FilterModel:
     elif "operating_point" in doc or "trajectory" in doc:
         r.fail("top level", "operating_point and trajectory belong to a Python model; a "
                "linear model (F or Phi) has neither")
+    _check_units(r, states, units, sources, measurements)
     inputs = tuple({k: v for k, v in b.items() if k != "doc"} for b in r.blocks.values())
     return FilterModel(str(path), hashlib.sha256(data).hexdigest(), tuple(states),
                        tuple(units), dt, form, F, Phi, sources, measurements, used_Q, used_R,

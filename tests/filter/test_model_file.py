@@ -130,3 +130,26 @@ def test_gauss_markov_state_needs_zero_in_F(folder, run_cli):
         "measurements:\n  - {name: a, H: [1, 0], variance: 1.0}\n")
     status, _, err = run_cli("filter", folder / "m.yaml", "-o", folder / "q.yaml")
     assert status == 2 and "write 0 there" in err
+
+
+@pytest.mark.parametrize("states, g, message", [
+    ("[{name: p, unit: m}, {name: v, unit: m/s}]", "[0, 1]", None),
+    ("[{name: p, unit: m}, {name: v, unit: m/s}]", "[1, 0]", "not in [(m)^2] of state p"),
+    ("[{name: p, unit: m}, {name: v, unit: deg/s}]", "[0, 1]", "is not SI"),
+])
+def test_units_catch_a_source_on_the_wrong_state(tmp_path, run_cli, states, g, message):
+    """An accelerometer's white noise N [m/s^2/sqrt(Hz)] driving the velocity gives
+    q*dt in (m/s)^2; put on the position (a wrong G, the kind of slip that writes
+    N^2/dt for N^2*dt) it does not match m^2 and is refused (dimensional analysis,
+    pint; common practice, no source). State units must be SI."""
+    static_block(tmp_path / "imu.yaml", {"accel_x": {
+        "white_noise": est(5e-4, unit="m/s**2/Hz^0.5")}})
+    (tmp_path / "m.yaml").write_text(
+        f"states: {states}\ndt: 0.02\nF: [[0, 1], [0, 0]]\nnoise:\n"
+        f"  - G: {g}\n    from: {{file: imu.yaml, channel: accel_x, term: white_noise}}\n"
+        "measurements:\n  - {name: p, H: [1, 0], variance: 1.0e-4, unit: m}\n")
+    status, _, err = run_cli("filter", tmp_path / "m.yaml", "-o", tmp_path / "q.yaml")
+    if message is None:
+        assert status == 0, err
+    else:
+        assert status == 2 and message in err and err.count("\n") == 1
