@@ -76,7 +76,8 @@ def _ros_bag(base: Path, out: Path, quiet: bool) -> list:
     bag = RosInput(str(base / BAG[0]), BAG[1])
     imu = run_static(bag, str(out / "static_ros2.yaml"), str(out / "static_ros2.png"),
                      overwrite=True, quiet=quiet,
-                     command=f"noisecal demo ({BAG[0]} --topic {BAG[1]})")
+                     command=f"noisecal demo ({BAG[0]} --topic {BAG[1]})",
+                     report=str(out / "static_ros2.html"))
     params = out / "imu_params.yaml"
     write_text(params, render_result(imu, "imu_driver"), overwrite=True)
     return [describe(imu.recording), "", summary(imu),
