@@ -136,3 +136,22 @@ def test_interval_coverage(tmp_path):
         hit_r += fit.theta_low[1] <= 0.04 <= fit.theta_high[1]
     print(f"ALS coverage: q {hit_q}/{runs}, R {hit_r}/{runs}")
     assert hit_q >= 88 and hit_r >= 88
+
+
+def test_time_varying_log_is_trimmed_to_steady_state(tmp_path):
+    """A filter that starts from a large P (filterpy's time-varying KalmanFilter): the
+    steps before its S settles at the steady state of the model's filter_used are left
+    out of ALS, and the estimate still holds q = 0.5 and R = 0.04 (Odelson et al. 2006
+    assume a steady-state gain)."""
+    from noisecal.api import consistency
+
+    x, z = sim.truth(0.5, 0.04, 6000, np.random.default_rng(8))
+    nu, S, _, _ = sim.run_filterpy(z, 0.05, 0.08)
+    log = write_log(tmp_path / "tv.csv", ["p"], "m", nu[:, None], S[:, None, None])
+    (tmp_path / "m.yaml").write_text(sim.model_text(0.05, 0.08))
+    res = consistency(str(log), model=tmp_path / "m.yaml", estimate=True, reps=100)
+    start = res.sections["estimate"]["identifiability"]["steady_state_from_step"][0]
+    assert 1 <= start < 200
+    fit = res.als_fit
+    assert fit.theta_low[0] <= 0.5 <= fit.theta_high[0]
+    assert fit.theta_low[1] <= 0.04 <= fit.theta_high[1]

@@ -153,3 +153,19 @@ def test_units_catch_a_source_on_the_wrong_state(tmp_path, run_cli, states, g, m
         assert status == 0, err
     else:
         assert status == 2 and message in err and err.count("\n") == 1
+
+
+def test_discrete_gauss_markov(tmp_path):
+    """Discrete form with a Gauss-Markov source: Phi[i][i] = e^(-dt/T) and Q[i][i] =
+    sigma^2 (1 - e^(-2dt/T)) (Brown & Hwang; from memory)."""
+    static_block(tmp_path / "gm.yaml", {"g": {"white_noise": est(1e-4), "gauss_markov": {
+        "sigma": est(2e-3), "correlation_time": est(8.0, unit="s")}}})
+    (tmp_path / "m.yaml").write_text(
+        "states: [a, b]\ndt: 0.5\nPhi: [[1, -0.5], [0, 0]]\nnoise:\n"
+        "  - G: [0, 1]\n    from: {file: gm.yaml, channel: g, term: gauss_markov}\n"
+        "measurements:\n  - {name: a, H: [1, 0], variance: 1.0}\n")
+    from noisecal.jobs.filter import discretise
+
+    mx = discretise(read_model(tmp_path / "m.yaml"), draws=200).matrices
+    assert mx["Phi"][1, 1] == pytest.approx(np.exp(-0.5 / 8.0), rel=1e-12)
+    assert mx["Q"][1, 1] == pytest.approx(4e-6 * (1 - np.exp(-1.0 / 8.0)), rel=1e-12)
