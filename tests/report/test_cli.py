@@ -59,3 +59,35 @@ def test_result_report_from_python(made, tmp_path):
     with pytest.raises(ParameterError, match="overwrite=True"):
         res.report(path)
     assert res.report(path, overwrite=True) == path
+
+
+def test_filter_and_consistency_reports(tmp_path, run_cli):
+    """Jobs the renderer has no special case for get the generic report: a headline of
+    the job's parameters, the consistency verdict as the exit status gives it, the
+    provenance's command, no script (the committed filter demo; common practice, no
+    source)."""
+    import html5lib
+    import yaml
+
+    from tests.report.conftest import ROOT
+
+    rec = ROOT / "recordings"
+    status, _, err = run_cli("filter", rec / "filter_model.yaml", "-o", tmp_path / "f.yaml",
+                             "--draws", 200, "--report", tmp_path / "f.html")
+    assert status == 0, err
+    status, _, err = run_cli("consistency", rec / "filter_log_run1.csv", "--model",
+                             rec / "filter_model.yaml", "-o", tmp_path / "c.yaml",
+                             "--report", tmp_path / "c.html")
+    assert status in (0, 1), err
+    for name in ("f", "c"):
+        doc = html5lib.parse((tmp_path / f"{name}.html").read_bytes(),
+                             namespaceHTMLElements=False)
+        body = "".join(doc.itertext())
+        assert not list(doc.iter("script"))
+        block = yaml.safe_load((tmp_path / f"{name}.yaml").read_text())
+        assert block["provenance"]["command"] in body
+        head = next(t for t in doc.iter("table") if t.get("id") == "headline")
+        cells = ["".join(td.itertext()) for td in head.iter("td")]
+        assert cells, "the headline lists the job's parameters"
+    verdict = next(p for p in doc.iter("p") if p.get("id") == "verdict")
+    assert ("NOT consistent" in "".join(verdict.itertext())) == (status == 1)
