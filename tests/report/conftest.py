@@ -92,8 +92,10 @@ def _motion_pair(folder: Path):
     t, values, truth, _, _ = drive(5, duration=60.0)
     sensor, truth_path = folder / "sensor.csv", folder / "truth.csv"
     with open(sensor, "w") as fh:
-        fh.write("time [s],y [m],yaw [rad]\n")
-        np.savetxt(fh, np.column_stack([t, values]), delimiter=",", fmt="%.7f")
+        # The sensor in its own units (mm, deg): the report shows them beside SI.
+        fh.write("time [s],y [mm],yaw [deg]\n")
+        np.savetxt(fh, np.column_stack([t, values[:, 0] * 1e3, np.degrees(values[:, 1])]),
+                   delimiter=",", fmt="%.7f")
     with open(truth_path, "w") as fh:
         fh.write("time [s],y [m],yaw [rad]\n")
         np.savetxt(fh, np.column_stack([truth[0].time, truth[0].values, truth[1].values]),

@@ -222,3 +222,19 @@ def test_job_notes_are_visible(made, name):
     for n in notes:
         assert printable(n) in warnings
     assert "confirm them on the real system" in text(doc)
+
+
+def test_motion_headline_in_the_sensor_units(made):
+    """The motion report gives σ and bias in SI and in the units the sensor's file used
+    (mm, deg): 1 m = 1000 mm, 1 rad = 180/π deg (arithmetic from the definitions)."""
+    block = yaml.safe_load((made["folder"] / "motion.yaml").read_text())
+    table = {(r[0], r[1]): r for r in rows(by_id(parse(made["motion"]), "headline"))}
+    for ch, factor, unit in (("y", 1e3, "mm"), ("yaw", 180 / np.pi, "deg")):
+        s = block["measurement"]["sigma"][ch]
+        shown = table[(ch, "sigma")][5]
+        value, rest = shown.split(" (")
+        lo, hi = rest.split(")")[0].split(" … ")
+        assert shown.endswith(f" {unit}")
+        assert float(value) == pytest.approx(s["value"] * factor, rel=6e-4)
+        assert (float(lo), float(hi)) == pytest.approx(
+            (s["ci95"][0] * factor, s["ci95"][1] * factor), rel=6e-4)

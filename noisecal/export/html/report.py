@@ -218,6 +218,7 @@ def _static(res, page: dict) -> None:
         rows.append(estimate_row(p.channel, p.name, e,
                                  customary(e.value if e.resolved else e.upper, unit, p.name)))
     page["headline"] = rows
+    page["customary_title"] = "customary"
     tables = []
     for name, ch in res.channels.items():
         m = ch.model
@@ -270,6 +271,26 @@ def _static(res, page: dict) -> None:
     page["warnings"] += [("filter", n) for n in fb.notes]
 
 
+def in_input_units(rec, channel: str, e: Estimate) -> str | None:
+    """An Estimate in the unit the recording's file gave for ``channel`` (e.g. mm, deg),
+    where that differs from SI and the Estimate has the channel's own unit."""
+    from ...units import convert
+
+    if channel not in rec.channels:
+        return None
+    i = rec.channels.index(channel)
+    si, src = rec.units[i], rec.source_units[i]
+    if e.unit != si or src == si:
+        return None
+    try:
+        if e.resolved:
+            return (f"{fmt(convert(e.value, si, src))} ({fmt(convert(e.lower, si, src))} … "
+                    f"{fmt(convert(e.upper, si, src))}) {src}")
+        return f"{fmt(convert(e.upper, si, src))} {src}"
+    except Exception:  # a unit pint cannot convert between is shown in SI only
+        return None
+
+
 def _motion(res, page: dict) -> None:
     m, a = res.model, res.alignment
     page["purpose"] = (
@@ -279,7 +300,9 @@ def _motion(res, page: dict) -> None:
                      ("aligned samples", fmt(int(res.time.shape[0]))),
                      ("overlap", f"{fmt(float(res.time[0]))} … {fmt(float(res.time[-1]))} s"),
                      ("channels", ", ".join(f"{c} [{u}]" for c, u in zip(m.order, m.units)))]
-    page["headline"] = [estimate_row(p.channel, p.name, p.estimate) for p in res.parameters()]
+    page["headline"] = [estimate_row(p.channel, p.name, p.estimate,
+                                     in_input_units(res.sensor, p.channel, p.estimate))
+                        for p in res.parameters()]
     page["tables"] = [
         _matrix("R (inside the gate)", m.order, list(m.units), m.R.tolist(), m.R_low.tolist(),
                 m.R_high.tolist(), "Covariance of the samples inside the gate, corrected "
@@ -434,6 +457,7 @@ def job_page(result, title: str | None = None) -> dict:
 
         page["summary"] = summary(result) if isinstance(result, RecheckResult) else ""
     page["has_customary"] = any(r["customary"] for r in page["headline"])
+    page.setdefault("customary_title", "input's units")
     page["has_tau"] = any(r["tau"] for r in page["headline"])
     page["provenance"] = _provenance(sections, page.pop("extra_prov"))
     page["figures"] = job_figures(result)
