@@ -513,6 +513,9 @@ def run_row(row: Row, outdir: str, known: str | None, token: str,
         message = str(exc)
     except MemoryError:
         message = "out of memory on the worker; run this row alone or on a larger machine"
+    except OSError as exc:
+        message = (f"the worker could not write in {outdir} ({exc.strerror or exc}); the "
+                   "workers need OUTDIR at the same path, writable (shared storage)")
     except Exception as exc:  # noqa: BLE001 - one row's bug must not end the batch
         message = (f"unexpected {type(exc).__name__}: {exc} (a fault in noisecal; please "
                    "report it with this row)")
