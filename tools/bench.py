@@ -236,8 +236,8 @@ def bench_batch(results, folder: Path, rows: int = 12):
     """Scaling of ``noisecal batch``: rows per minute with 1 and 2 local workers (the
     whole command, cluster start-up included, which is also given alone), and the
     per-row overhead of the Dask path against a plain loop over the same task body in
-    this process (warm: one row run first). Rows: static, 8192 samples at 100 Hz,
-    one channel, 60 bootstrap replicates."""
+    this process (warm: one row run first), on a fresh cluster and on a warm one.
+    Rows: static, 8192 samples at 100 Hz, one channel, 60 bootstrap replicates."""
     import logging
     import shutil
 
@@ -289,6 +289,22 @@ def bench_batch(results, folder: Path, rows: int = 12):
         results[f"batch_seconds_{n}_workers"] = total
         results[f"batch_rows_per_minute_{n}_workers"] = 60 * rows / total
         shutil.rmtree(target)
+    # The same on a warm cluster (its worker has imported noisecal and loaded the
+    # compiled kernels on a first batch): what a long-lived cluster costs per row.
+    c = LocalCluster(n_workers=1, threads_per_worker=1, processes=True, host="127.0.0.1",
+                     dashboard_address=":0", silence_logs=logging.ERROR)
+    try:
+        batch.run_batch(data / "warm.csv", folder / "warmup", scheduler=c.scheduler_address,
+                        quiet=True)
+        t = time.perf_counter()
+        res = batch.run_batch(data / "m.csv", folder / "warm", scheduler=c.scheduler_address,
+                              quiet=True)
+        results["batch_seconds_1_worker_warm"] = time.perf_counter() - t
+        assert res.count("done") == rows, res.summary()
+    finally:
+        c.close()
+    results["batch_overhead_seconds_per_row_1_worker_warm"] = (
+        results["batch_seconds_1_worker_warm"] - t_loop) / rows
     results["batch_rows_per_minute_plain_loop"] = 60 * rows / t_loop
     results["batch_speedup_2_over_1_workers"] = (results["batch_seconds_1_workers"]
                                                  / results["batch_seconds_2_workers"])
