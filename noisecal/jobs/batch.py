@@ -763,14 +763,17 @@ def _run(entries, outdir, db, store, scheduler, workers, overwrite, quiet, comma
             _submit(client, todo, outdir, db, store, token, command, quiet, say, reports,
                     known_runs)
         finally:
-            for old in outdir.glob(f"{STAGING}{token}-*"):
-                shutil.rmtree(old, ignore_errors=True)
             try:
                 client.close()
                 if cluster is not None:
                     cluster.close()
             except Exception:  # noqa: BLE001 - closing must not hide the batch's outcome
                 pass
+            # This batch's staging folders, and those a stopped batch's tasks still
+            # running on a shared cluster made after this one started (the lock says
+            # no other batch is using the folder).
+            for old in outdir.glob(f"{STAGING}*"):
+                shutil.rmtree(old, ignore_errors=True)
     ordered = [reports[id(e)] if isinstance(e, RowReport) else reports[e.index]
                for e in entries]
     return BatchResult(tuple(ordered), str(outdir), str(db), where, dashboard)
