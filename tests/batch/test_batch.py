@@ -34,6 +34,7 @@ from noisecal.export import yaml_block  # noqa: E402
 from noisecal import history  # noqa: E402
 from noisecal.cli import main  # noqa: E402
 from noisecal.jobs.batch import STAGING, read_manifest  # noqa: E402
+from tests.camera.test_targets import _write as _write_targets  # noqa: E402
 from tests.conftest import rate_csv  # noqa: E402
 from tests.motion.test_job import write_pair  # noqa: E402
 
@@ -52,12 +53,13 @@ ENCODER = ("encoder_ticks.csv", "encoder_truth.csv", "encoder_config.yaml")
 
 
 def _make_fleet(root: Path) -> Path:
-    """Recordings and a manifest: 8 static rows, a motion, an odometry and a re-check
-    row (against a baseline block made here from the odometry demo), 5 bad rows."""
+    """Recordings and a manifest: 8 static rows, a motion, an odometry, a re-check
+    (against a baseline block made here from the odometry demo) and a targets row, 5
+    bad rows."""
     data = root / "data"
     data.mkdir()
     rows = [["job", "recording", "unit", "sensor", "truth", "config", "baseline",
-             "options"]]
+             "options", "camera", "survey"]]
     for k in range(GOOD):
         _good_recording(data, k)
         rows.append(["static", f"u{k}.csv", f"U{k}", "imu", "", "", "", f"reps=20 seed={k + 1}"])
@@ -84,8 +86,13 @@ def _make_fleet(root: Path) -> Path:
              ["static", "u0.csv", "B3", "imu", "", "", "", "reps=many"],  # bad option value
              ["motion", "u0.csv", "B4", "imu", "", "", "", ""],        # motion without truth
              ["static", "badunit.csv", "B5", "imu", "", "", "", ""]]   # unknown unit
+    cam = data / "cam"
+    cam.mkdir()
+    _write_targets(cam)  # the yard demo's camera and survey, its first detections
+    rows.append(["targets", "cam/det.csv", "T1", "front_cam", "", "", "", "seed=3",
+                 "cam/cam.yaml", "cam/survey.csv"])
     with open(data / "fleet.csv", "w", newline="") as fh:
-        csv.writer(fh).writerows(rows)
+        csv.writer(fh).writerows([r + [""] * (10 - len(r)) for r in rows])
     return data / "fleet.csv"
 
 
@@ -172,6 +179,10 @@ def alone(first_batch):
     res = recheck(enc / "baseline.yaml", enc / ENCODER[0], truth=enc / ENCODER[1],
                   tolerance=1.5)
     out["R1"] = (res, yaml.safe_load(yaml_block.render(res.sections)))
+    cam = manifest.parent / "cam"
+    res = noisecal.targets(cam / "det.csv", survey=cam / "survey.csv", camera=cam / "cam.yaml",
+                           seed=3)
+    out["T1"] = (res, yaml.safe_load(res._render()))
     return out
 
 
@@ -194,6 +205,7 @@ def _assert_same_as_alone(alone: dict, out: Path) -> None:
     rechecked = _doc(out / "O1" / "wheels.recheck.yaml")
     assert rechecked["verdict"] == alone["R1"][0].verdict
     assert _content(rechecked) == _content(alone["R1"][1])
+    assert _content(_doc(out / "T1" / "front_cam.targets.yaml")) == _content(alone["T1"][1])
 
 
 def test_local_batch_gives_each_job_alone_results(first_batch, alone):
@@ -209,11 +221,11 @@ def test_local_batch_gives_each_job_alone_results(first_batch, alone):
 
 def test_bad_rows_are_reported_in_one_line_and_the_others_done(first_batch):
     """Each bad row is named with its manifest line and its one-line error, nothing is
-    written for it, no traceback; the summary counts 11 done and 5 failed."""
+    written for it, no traceback; the summary counts 12 done and 5 failed."""
     root, manifest, status, out, err = first_batch
     text = out + err
     assert "Traceback" not in text
-    assert "16 rows on local (2 workers): 11 done, 0 unchanged (skipped), 5 failed" in text
+    assert "17 rows on local (2 workers): 12 done, 0 unchanged (skipped), 5 failed" in text
     lines = [ln for ln in text.splitlines() if ln.startswith("  ")]
     for unit, fragment in BAD.items():
         line = next(ln for ln in lines if fragment in ln)
@@ -245,7 +257,7 @@ def test_history_holds_every_run_once(first_batch, alone):
         units = [u for (u,) in con.execute("SELECT unit FROM runs ORDER BY unit")]
     finally:
         con.close()
-    assert units == sorted(["M1", "O1", "O1"] + [f"U{k}" for k in range(GOOD)])
+    assert units == sorted(["M1", "O1", "O1", "T1"] + [f"U{k}" for k in range(GOOD)])
 
 
 def test_rerun_skips_unchanged_rows_and_redoes_a_changed_input(copy_of_first, cluster):
@@ -397,7 +409,7 @@ def test_external_scheduler_and_worker_give_the_same_results(first_batch, alone,
         status, text, err = _cli("batch", manifest, "-o", out, "--scheduler", address,
                                  "--quiet")
         assert status == 1, err
-        assert f"16 rows on {address}: 11 done, 0 unchanged (skipped), 5 failed" in text
+        assert f"17 rows on {address}: 12 done, 0 unchanged (skipped), 5 failed" in text
         _assert_same_as_alone(alone, out)
         for k in range(GOOD):
             assert len(_runs(out / "history.db", f"U{k}")) == 1
