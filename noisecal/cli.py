@@ -530,10 +530,15 @@ def _run(args, command: str, recorder) -> int:
         elif args.command == "batch":
             from .api import batch
 
-            result = batch(args.manifest, output=args.output, db=args.db,
-                           scheduler=args.scheduler, workers=args.workers,
-                           overwrite=args.overwrite, progress=not args.quiet,
-                           command=command, say=say)
+            try:
+                result = batch(args.manifest, output=args.output, db=args.db,
+                               scheduler=args.scheduler, workers=args.workers,
+                               overwrite=args.overwrite, progress=not args.quiet,
+                               command=command, say=say)
+            except KeyboardInterrupt:
+                print("noisecal: batch stopped: the rows stored so far are kept; run the "
+                      "same command again to do the rest", file=sys.stderr)
+                raise
             say(result.summary())
             return result.exit_status
         elif args.command == "fleet":
