@@ -53,7 +53,10 @@ def registry() -> pint.UnitRegistry:
     try:
         # pint's own cache of parsed definitions halves its start-up time.
         ureg = pint.UnitRegistry(cache_folder=str(cache_root() / "pint"))
-    except OSError:
+    except Exception:  # noqa: BLE001
+        # pint writes its cache files in place: a process starting while another
+        # writes one reads it truncated (EOFError, UnpicklingError), and a run killed
+        # mid-write leaves it so. The definitions parse without the cache.
         ureg = pint.UnitRegistry()
     ureg.define("sensor_gravity = 9.80665 m/s^2")
     ureg.define("dps = degree / second")

@@ -120,3 +120,25 @@ def test_conversion_overflow_gives_inf_without_warning():
         warnings.simplefilter("error")
         values, _ = to_si(np.array([1e306]), "km", "t")
     assert np.isinf(values[0])
+
+
+def test_truncated_unit_cache_is_not_fatal(tmp_path):
+    """A pint cache file cut short (another process writing it, or a run killed
+    mid-write) leaves the registry working: common practice, no source."""
+    import os
+    import subprocess
+    import sys
+
+    env = dict(os.environ, NOISECAL_CACHE=str(tmp_path))
+    code = ("from noisecal.units import registry, to_si; import numpy as np; registry(); "
+            "print(to_si(np.array([1.0]), 'deg/s', 'x')[0][0])")
+    first = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True,
+                           text=True, check=True)
+    files = [p for p in (tmp_path / "pint").rglob("*") if p.is_file() and p.suffix != ".json"]
+    assert files, "pint wrote no cache files"
+    for p in files:
+        p.write_bytes(p.read_bytes()[: max(1, p.stat().st_size // 3)])
+    again = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True,
+                           text=True)
+    assert again.returncode == 0, again.stderr
+    assert float(again.stdout) == float(first.stdout) == np.pi / 180
