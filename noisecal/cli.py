@@ -509,22 +509,18 @@ def _run(args, command: str, recorder) -> int:
         elif args.command == "filter":
             from .jobs.filter import run_filter, summary as filter_summary
 
-            report = _report_first(args, [args.model])
             result = run_filter(args.model, args.output, args.draws, args.seed,
-                                args.overwrite, command)
+                                args.overwrite, command, report=args.report)
             say(filter_summary(result))
-            _report_after(result, report, args.overwrite)
             _done(say, args, None)
         elif args.command == "consistency":
             from .jobs.consistency import run_consistency, summary as consistency_summary
 
-            report = _report_first(args, list(args.logs) + [args.model])
-
             result = run_consistency(args.logs, args.model, args.output, args.estimate,
                                      args.lags, args.reps, args.seed, args.level,
-                                     args.overwrite, command, use_cache=not args.no_cache)
+                                     args.overwrite, command, use_cache=not args.no_cache,
+                                     report=args.report)
             say(consistency_summary(result))
-            _report_after(result, report, args.overwrite)
             _done(say, args, None)
             return result.exit_status
         elif args.command == "batch":
@@ -573,24 +569,6 @@ def _run(args, command: str, recorder) -> int:
 
 
 _JOBS = ("static", "motion", "targets")
-
-
-def _report_first(args, inputs):
-    """``--report`` of a job whose run function writes no report: checked before the work."""
-    if not args.report:
-        return None
-    from .export.html import check_report_path
-
-    return check_report_path(args.report, inputs, args.overwrite, [args.output])
-
-
-def _report_after(result, report, overwrite: bool) -> None:
-    """Write the checked ``--report`` of ``result`` (after the job's own outputs)."""
-    if report is not None:
-        from .export.atomic import write_text
-        from .export.html import render_job
-
-        write_text(report, render_job(result), overwrite=overwrite)
 
 
 def _done(say, args, record) -> None:

@@ -517,7 +517,8 @@ def summary(result: ConsistencyResult) -> str:
 def run_consistency(log_paths: list, model_path: str, out: str, estimate: bool = False,
                     lags: int | None = None, reps: int = 200, seed: int = 1,
                     level: float = 0.95, overwrite: bool = False, command: str = "",
-                    use_cache: bool = True, record=None) -> ConsistencyResult:
+                    use_cache: bool = True, record=None,
+                    report: str | None = None) -> ConsistencyResult:
     """Read the model and the logs, test, optionally estimate, write the YAML block.
 
     Parameters
@@ -533,16 +534,25 @@ def run_consistency(log_paths: list, model_path: str, out: str, estimate: bool =
     overwrite : bool
     use_cache : bool
     record : optional
+    report : str, optional
+        HTML report path (self-contained), written together with the YAML block.
     """
     from ..ingest import read_recording
+    from .filter import report_target
 
     out_path = yaml_output(out, list(log_paths) + [model_path], overwrite,
                            getattr(record, "paths", ()))
+    report_path = report_target(report, list(log_paths) + [model_path], overwrite, record,
+                                out_path)
     model = read_model(model_path)
     logs = [read_recording(p, use_cache=use_cache) for p in log_paths]
     result = check(model, logs, estimate, lags, reps, seed, level, command)
     with Staged(overwrite) as staged:
         staged.text(out_path, result._render(None if out_path == STDOUT else out_path))
+        if report_path is not None:
+            from ..export.html import render_job
+
+            staged.text(report_path, render_job(result))
         staged.commit(record(result) if record else None)
     return result
 

@@ -360,7 +360,8 @@ def yaml_output(out: str, inputs: list, overwrite: bool, protect=()):
 
 
 def run_filter(model_path: str, out: str, draws: int = DEFAULT_DRAWS, seed: int = 1,
-               overwrite: bool = False, command: str = "", record=None) -> FilterResult:
+               overwrite: bool = False, command: str = "", record=None,
+               report: str | None = None) -> FilterResult:
     """Read the model, discretise it and write the YAML block atomically.
 
     Parameters
@@ -375,12 +376,29 @@ def run_filter(model_path: str, out: str, draws: int = DEFAULT_DRAWS, seed: int 
         Replace an existing output.
     record : optional
         A history recorder (none by default).
+    report : str, optional
+        HTML report path (self-contained), written together with the YAML block.
     """
     out_path = yaml_output(out, [model_path], overwrite, getattr(record, "paths", ()))
+    report_path = report_target(report, [model_path], overwrite, record, out_path)
     if not isinstance(draws, int) or isinstance(draws, bool):
         raise ParameterError("draws", draws, "give a whole number")
     result = discretise(read_model(model_path), draws, seed, command)
     with Staged(overwrite) as staged:
         staged.text(out_path, result._render(None if out_path == STDOUT else out_path))
+        if report_path is not None:
+            from ..export.html import render_job
+
+            staged.text(report_path, render_job(result))
         staged.commit(record(result) if record else None)
     return result
+
+
+def report_target(report, inputs, overwrite: bool, record, *outputs):
+    """The ``--report`` path checked before any work (None without one)."""
+    if report is None:
+        return None
+    from ..export.html import check_report_path
+
+    return check_report_path(report, list(inputs) + list(getattr(record, "paths", ())),
+                             overwrite, [o for o in outputs if o is not None])
