@@ -30,6 +30,7 @@ demo-data: $(STAMP)
 	$(BIN)/python tools/make_drive_recordings.py
 	$(BIN)/python tools/make_camera_recordings.py
 	$(BIN)/python tools/make_demo_bag.py
+	$(BIN)/python tools/make_filter_demo.py
 
 clean:
 	rm -rf $(VENV) build *.egg-info .pytest_cache

@@ -8,8 +8,8 @@ writes what the user keeps; ``jobs`` holds one pipeline per use case.
 
 __version__ = "0.1.0"
 
-_API = ("read", "static", "motion", "odometry", "targets", "recheck", "ros_parameters",
-        "ParameterError")
+_API = ("read", "static", "motion", "odometry", "targets", "recheck", "filter",
+        "consistency", "batch", "fleet", "ros_parameters", "ParameterError")
 
 
 def __getattr__(name: str):

@@ -21,6 +21,11 @@ YARD = ("recordings/yard_detections.csv", "recordings/yard_survey.csv",
         "recordings/yard_camera.yaml")
 ENCODERS = ("recordings/encoder_ticks.csv", "recordings/encoder_truth.csv",
             "recordings/encoder_config.yaml")
+FILTER = ("recordings/filter_model.yaml",
+          ("recordings/filter_log_run1.csv", "recordings/filter_log_run2.csv",
+           "recordings/filter_log_run3.csv"))
+"""The rover's lateral filter model and its logs (tools/make_filter_demo.py): the model
+takes its noise from the static and motion blocks this demo writes."""
 BAG = ("recordings/bench_imu_ros2", "/imu/data")
 """The ROS 2 MCAP bench bag (tools/make_demo_bag.py) and its IMU topic."""
 OUT_DIR = "reports/demo"
@@ -30,7 +35,8 @@ def run_demo(root: str = ".", quiet: bool = False) -> str:
     """Run the demo from the project root; return what it prints.
 
     Writes ``static``, ``motion``, ``odometry`` and ``targets`` ``.yaml``, ``.png`` and
-    ``.html`` (the self-contained report) in ``reports/demo/``.
+    ``.html`` (the self-contained report), ``filter`` and ``consistency`` ``.yaml`` and
+    ``.html``, and the ROS 2 bag's outputs in ``reports/demo/``.
     """
     base = Path(root)
     rec = base / RECORDING
@@ -61,10 +67,31 @@ def run_demo(root: str = ".", quiet: bool = False) -> str:
                        str(out / "targets.png"), overwrite=True,
                        command=f"noisecal demo ({YARD[0]})", report=str(out / "targets.html"))
     text += ["", targets_summary(yard)]
+    text += ["", *_filter(base, out, quiet)]
     text += ["", *_ros_bag(base, out, quiet)]
     text.append(f"\nwrote static, motion, odometry and targets .yaml, .png and .html (the "
-                f"report) into {out}")
+                f"report), filter and consistency .yaml and .html, and the ROS 2 bag's "
+                f"static block, plot, report and parameter file into {out}")
     return "\n".join(text)
+
+
+def _filter(base: Path, out: Path, quiet: bool) -> list:
+    """The rover's filter: its discrete Q and R from the blocks just written, and the
+    consistency of its three logged passes with an ALS estimate."""
+    from .consistency import run_consistency
+    from .consistency import summary as consistency_summary
+    from .filter import run_filter
+    from .filter import summary as filter_summary
+
+    model = str(base / FILTER[0])
+    matrices = run_filter(model, str(out / "filter.yaml"), overwrite=True,
+                          command=f"noisecal demo (filter {FILTER[0]})",
+                          report=str(out / "filter.html"))
+    check = run_consistency([str(base / p) for p in FILTER[1]], model,
+                            str(out / "consistency.yaml"), estimate=True, overwrite=True,
+                            command=f"noisecal demo (consistency --estimate {FILTER[0]})",
+                            report=str(out / "consistency.html"))
+    return [filter_summary(matrices), "", consistency_summary(check)]
 
 
 def _ros_bag(base: Path, out: Path, quiet: bool) -> list:
