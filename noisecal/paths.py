@@ -25,6 +25,22 @@ just made it and not yet taken its lock (common practice, no source)."""
 _noted: set = set()
 
 
+def threads() -> int:
+    """Threads a run's compiled work may use: ``$NOISECAL_THREADS`` if it is a whole
+    number ≥ 1, else the cores this process may run on.
+
+    A batch worker gets its share of the machine this way: N worker processes each
+    sizing their pools to every core would run N² threads on N cores.
+    """
+    text = os.environ.get("NOISECAL_THREADS", "").strip()
+    if text.isdigit() and int(text) >= 1:
+        return int(text)
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
 def cache_root() -> Path:
     """The cache folder (not created).
 

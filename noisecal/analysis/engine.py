@@ -12,7 +12,6 @@ The results equal the reference path to rounding (tested ≤ 1e-9 relative).
 
 from __future__ import annotations
 
-import os
 
 import numpy as np
 from numba import njit
@@ -179,7 +178,9 @@ def _pool():
     if _POOL is None:
         from concurrent.futures import ThreadPoolExecutor
 
-        _POOL = ThreadPoolExecutor(max_workers=max(1, os.cpu_count() or 1),
+        from ..paths import threads
+
+        _POOL = ThreadPoolExecutor(max_workers=threads(),
                                    thread_name_prefix="noisecal-engine")
     return _POOL
 
@@ -209,7 +210,9 @@ def sum_squares(x: np.ndarray, m: np.ndarray, kind: str) -> tuple[np.ndarray, np
     x = np.ascontiguousarray(x, dtype=np.float64)
     ms = np.asarray(m, dtype=np.int64)
     code = KIND_CODE[kind]
-    workers = os.cpu_count() or 1
+    from ..paths import threads
+
+    workers = threads()
     if x.shape[0] < PARALLEL_MIN or workers == 1 or ms.shape[0] < 2:
         return _sum_many(x, np.ascontiguousarray(ms), code)
     # Deal the taus out in order of work so each thread gets a similar share.

@@ -646,11 +646,16 @@ def _client(scheduler: str | None, workers: int | None):
             raise InputError(f"--scheduler {scheduler}: no Dask scheduler answered "
                              f"({type(exc).__name__}); check the address and that the "
                              "scheduler runs") from None
-    n = workers or (os.cpu_count() or 1)
-    # A free port each time (two batches, or tests, side by side).
+    from ..paths import threads
+
+    cores = threads()
+    n = workers or cores
+    # A free port each time (two batches, or tests, side by side). Each worker's jobs
+    # share out the cores (NOISECAL_THREADS) instead of each sizing its pools to all.
     cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True,
                            dashboard_address=":0", silence_logs=logging.ERROR,
-                           host="127.0.0.1")
+                           host="127.0.0.1",
+                           env={"NOISECAL_THREADS": str(max(1, cores // n))})
     return Client(cluster), cluster, f"local ({n} worker{'s' * (n != 1)})"
 
 

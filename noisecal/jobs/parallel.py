@@ -8,13 +8,14 @@ cache). Python threads also keep Ctrl-C in the main thread.
 
 from __future__ import annotations
 
-import os
 import threading
 
 
 def default_workers(count: int) -> int:
     """Threads for ``count`` independent items: one per core, at most one per item."""
-    return max(1, min(count, os.cpu_count() or 1))
+    from ..paths import threads
+
+    return max(1, min(count, threads()))
 
 
 def map_ordered(fn, items, workers: int | None = None) -> list:

@@ -86,3 +86,21 @@ def test_shared_bar_counts_every_update_from_threads():
 def test_default_workers():
     assert default_workers(1) == 1
     assert 1 <= default_workers(50) <= 50
+
+
+@pytest.mark.parametrize("value, expected", [("1", 1), ("3", 3), ("0", None), ("x", None),
+                                             ("", None)])
+def test_thread_share_from_the_environment(monkeypatch, value, expected):
+    """NOISECAL_THREADS caps the per-channel threads (a batch worker's share of the
+    cores); an unusable value falls back to the cores the process may use (common
+    practice, no source)."""
+    import os
+
+    from noisecal.jobs.parallel import default_workers
+    from noisecal.paths import threads
+
+    monkeypatch.setenv("NOISECAL_THREADS", value)
+    cores = len(os.sched_getaffinity(0))
+    assert threads() == (expected if expected is not None else cores)
+    assert default_workers(64) == (expected if expected is not None else cores)
+    assert default_workers(1) == 1
