@@ -2,7 +2,7 @@
 
 The fast set (in ``make test``) runs 100 seeded simulations; the slow set
 (``make test-slow``) runs 1000 sample-for-sample and 200 on records long enough
-to use the decimated bootstrap. A calibrated interval covers 95 %; the issue's
+to use the decimated bootstrap. A calibrated interval covers 95 %; the
 acceptance band is 93–97 %. With 100 runs the binomial standard error is 2.2 %,
 so the fast set is a tripwire and the slow set the measurement.
 """
@@ -35,7 +35,7 @@ def coverage(runs: int, n: int, period: float = 0.1, first_seed: int = 1000):
 
 
 def test_coverage_fast_set():
-    """Coverage over 100 seeded simulations lies in 93–97 % (issue acceptance band;
+    """Coverage over 100 seeded simulations lies in 93–97 % (acceptance band;
     chi-square/bootstrap theory: a 95 % interval covers 95 %)."""
     cov = coverage(100, 2 ** 14)
     assert all(0.93 <= v <= 0.97 for v in cov.values()), cov

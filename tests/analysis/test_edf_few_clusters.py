@@ -222,7 +222,7 @@ def test_conservative_edf_is_smallest_greenhall_riley(kind, d, modified, overlap
 def test_no_type_is_borrowed_across_taus():
     """A curve built with noise_from takes no noise type where its own tau has too few
     averages, even if the source curve claims one there, nor where the source did not
-    identify it (issue 10: the nearest type reused at 7 clusters gave a ±0.2 % interval).
+    identify it (the nearest type reused at 7 clusters gave a ±0.2 % interval).
     Common practice, no source: an identification needs averages at that tau."""
     from dataclasses import replace
 

@@ -23,8 +23,8 @@ def gyro():
     return y
 
 
-def test_issue_example(gyro, tmp_path):
-    """The example of the issue, as written: read arrays, run static, summary, to_dict,
+def test_documented_example(gyro, tmp_path):
+    """The documented example, as written: read arrays, run static, summary, to_dict,
     write, and an interval at another level (a narrower 90 % interval inside the 95 %
     one: common practice, no source)."""
     rec = noisecal.read({"gyro_x": gyro}, period=0.01, units={"gyro_x": "rad/s"})

@@ -85,7 +85,7 @@ def test_white_noise_through_a_low_pass(cutoff):
     assert held >= 2
 
 
-def test_issue_gyro_through_12_hz():
+def test_reported_gyro_through_12_hz():
     """The reported case: a gyro with white noise, bias instability and random walk
     through a 2nd-order 12 Hz low-pass, ADC-rounded. The white noise was a bound 5×
     below the truth; now N, B and K are numbers whose intervals hold the truth in

@@ -48,7 +48,7 @@ def rates(c2, n: int, runs: int, first_seed: int) -> np.ndarray:
 
 
 def test_false_resolution_tripwire():
-    """Absent terms are resolved in at most 5 % of records (the issue's bound); with
+    """Absent terms are resolved in at most 5 % of records (the specified bound); with
     60 seeds a true 5 % exceeds 6/60 with probability 8 %, so the tripwire fails at
     more than 8/60 (binomial, common practice)."""
     for name, c2 in CASES.items():

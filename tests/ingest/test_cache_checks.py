@@ -1,7 +1,7 @@
-"""Issue 12, the cache: a file changed during its read, damaged entries and index
+"""The cache: a file changed during its read, damaged entries and index
 records, an unusable cache folder, leftovers of killed runs, very wide files.
 
-Each case is the issue's as written; all are common practice, no source."""
+Each case is a reported one; all are common practice, no source."""
 
 from __future__ import annotations
 
@@ -102,7 +102,7 @@ def _cached(tmp_path, fresh_cache):
 
 
 def test_flipped_bytes_in_a_cached_column_are_found_and_rebuilt(tmp_path, fresh_cache, capfd):
-    """16 flipped bytes in a cached column (the issue's case): detected on load, the
+    """16 flipped bytes in a cached column (a reported case): detected on load, the
     entry rebuilt, the result the file's, one note on stderr."""
     path, ref, folder = _cached(tmp_path, fresh_cache)
     column = folder / "c0.npy"

@@ -1,4 +1,4 @@
-"""Hypothesis fuzzing of CSV bytes (issue 12): random header cells, numbers and their
+"""Hypothesis fuzzing of CSV bytes: random header cells, numbers and their
 spellings, separators, encodings, line ends, blank and comment lines.
 
 For every file the reader returns a Recording whose values are the written numbers

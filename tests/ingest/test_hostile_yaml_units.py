@@ -1,4 +1,4 @@
-"""Hostile and unlucky side inputs, units and time columns (issue 12).
+"""Hostile and unlucky side inputs, units and time columns.
 
 Every refusal must be a NoisecalError whose message is one line naming the
 file; the checks here are common practice, no source, unless a test says

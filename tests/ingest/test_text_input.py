@@ -1,4 +1,4 @@
-"""Issue 12, text input: encodings, line ends, undecodable bytes, long cells, number
+"""Text input: encodings, line ends, undecodable bytes, long cells, number
 spellings and exact nanosecond times. Each bad case: one line naming where, through
 the CLI exit status 2 and nothing written. Common practice, no source, except where
 numpy.loadtxt (reference library) gives the expected values."""
@@ -86,7 +86,7 @@ def test_bad_cell_is_named_by_its_line_with_any_line_end(tmp_path, newline):
 
 
 def test_undecodable_byte_after_the_first_8kb_names_its_line(run_cli, tmp_path):
-    """The issue's case: a Latin-1 byte far past the 8 KB the header sniff reads."""
+    """The reported case: a Latin-1 byte far past the 8 KB the header sniff reads."""
     _, body = rows()
     body[1999] = body[1999] + "\xb0"
     path = tmp_path / "rec.csv"

@@ -49,7 +49,7 @@ def test_coverage_fast_set():
 
 @pytest.mark.slow
 def test_coverage_slow_set():
-    """600 seeded drives: every 95 % interval covers 93–97 % (issue acceptance band),
+    """600 seeded drives: every 95 % interval covers 93–97 % (acceptance band),
     the Clopper–Pearson outlier interval at least 93 % (it is conservative by
     construction)."""
     cov = coverage(600, 70_000)

@@ -34,7 +34,7 @@ def test_demo_drive_recovers_the_documented_truth(tmp_path, run_cli):
     """The committed demo drive (tools/make_drive_recordings.py documents its true
     values): latency 45 ms, heading σ 0.5°, 2 % outliers, offset bias 1.5 mm, and
     offset noise growing with speed — each inside its 95 % interval, keys as the
-    issue names them."""
+    README documents them."""
     out = tmp_path / "drive.yaml"
     rec = ROOT / "recordings"
     status, stdout, stderr = run_cli("motion", rec / "drive_linesensor.csv", "--truth",

@@ -72,7 +72,7 @@ def test_checksum_follows_values_not_layout():
 
 
 def test_hand_edit_refused_or_accepted_and_recorded(static_base, tmp_path, run_cli):
-    """The issue's case: gyro_x's white noise and its interval doubled by hand. Refused
+    """The reported case: gyro_x's white noise and its interval doubled by hand. Refused
     (one line, exit 2, names --accept-edited); accepted with the option, the stated
     values are compared — the new unit, at half the edited value, is 'better' — and the
     output records that an edited baseline was accepted."""
@@ -197,7 +197,7 @@ def _motion_pair(folder: Path):
 
 
 def test_side_files_found_from_any_folder(tmp_path, run_cli, monkeypatch):
-    """The issue's case: a baseline made in folder A with a relative map path, re-checked
+    """The reported case: a baseline made in folder A with a relative map path, re-checked
     from another folder, then with A moved whole; the map deleted is one line naming
     --map, and --map points at it."""
     a = tmp_path / "A"
@@ -318,7 +318,7 @@ def test_factor_is_never_one():
 
 
 def test_same_length_bounded_term_asks_for_more_than_the_same_length():
-    """The issue's case: a term resolved in a 1 h baseline and only bounded in a 1 h
+    """The reported case: a term resolved in a 1 h baseline and only bounded in a 1 h
     re-check. The figure is at least one more octave (2×), never 1×; where the
     baseline's own interval is too wide, the baseline is named as the limit."""
     row = {"channel": "g", "name": "bias_random_walk", "unit": "", "baseline": 1e-5,

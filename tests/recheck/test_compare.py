@@ -68,7 +68,7 @@ def test_same_noise_is_consistent_fast_set(tmp_path):
 
 @pytest.mark.slow
 def test_same_noise_is_consistent_slow_set(tmp_path):
-    """200 seeded units with the same noise: 'consistent' in at least 95 % (issue)."""
+    """200 seeded units with the same noise: 'consistent' in at least 95 % (the acceptance level)."""
     out = verdicts(tmp_path, 200, 30_000)
     assert out["consistent"] >= 190, out
 

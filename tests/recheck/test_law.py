@@ -60,7 +60,7 @@ def _not_above(k: int, n: int, rate: float) -> bool:
 
 
 def test_same_law_farther_from_the_beacon_is_not_changed(tmp_path, run_cli):
-    """The issue's case: the same sensor driven a second time farther from its beacon
+    """The reported case: the same sensor driven a second time farther from its beacon
     (5–15 m, then 20–40 m), the covariate given on the command line. The pooled σ
     roughly triples with the drive (σ = √(a + b r²)), but the law's slope b is
     compared, and it is consistent; the intercept, pinned only near the beacon, is left
