@@ -22,7 +22,15 @@ accel_z    as accel_x           as accel_x           as accel_x            2.0e-
 
 N is the low-frequency level (what a filter stepping well above 0.1 s sees).
 Quantization at the output resolution adds under 0.1 % to N² and is left
-out of the table. Run: ``python tools/make_demo_recordings.py``.
+out of the table.
+
+A second log, ``bench_static_swap.parquet``, is the replacement unit fitted
+after the rover's IMU was swapped: the same model on the same bench, 3 h at
+20 Hz (seed 20261202, no dropout), with the same terms as above except gyro_z,
+whose white noise is 1.6 times the first unit's (6.981e-5 rad/s/√Hz, 0.24
+deg/√h: a unit whose gyro is noisier than its twin's). The demo re-checks it
+against the first unit's block: gyro_z's white noise changed, the rest as
+before. Run: ``python tools/make_demo_recordings.py``.
 """
 
 from __future__ import annotations
@@ -51,6 +59,8 @@ GYRO_LSB_DEG_S = 0.0005
 ACCEL_LSB_G = 1e-5
 DROPOUT_AT_S, DROPOUT_S = 8280.0, 3.0
 LOW_PASS_HZ = 5.0
+SWAP_SEED, SWAP_HOURS = 20261202, 3.0
+SWAP_GYRO_Z_WHITE = 1.6  # the replacement unit's gyro_z white noise, times the first's
 
 
 def low_pass(y: np.ndarray, period: float) -> np.ndarray:
@@ -61,24 +71,29 @@ def low_pass(y: np.ndarray, period: float) -> np.ndarray:
     return signal.sosfilt(sos, y, zi=signal.sosfilt_zi(sos) * y[0])[0]
 
 
-def make_static(path: Path) -> None:
-    rng = np.random.default_rng(SEED)
+def make_static(path: Path, seed: int = SEED, hours: float = HOURS,
+                white_scale: dict | None = None, dropout: bool = True) -> None:
+    """Write one bench log: ``white_scale`` multiplies a channel's white noise."""
+    rng = np.random.default_rng(seed)
     period = 1.0 / RATE_HZ
-    n = int(HOURS * 3600 * RATE_HZ)
+    n = int(hours * 3600 * RATE_HZ)
+    scale = white_scale or {}
     t_ns = np.arange(n, dtype=np.int64) * int(period * 1e9)
     t_ns += np.round(rng.normal(0.0, 50e3, n)).astype(np.int64)  # 50 µs jitter
     t_ns += 1_780_000_000 * 10 ** 9  # an epoch start in 2026
     columns = {"time [ns]": t_ns}
     for name, offset in OFFSET_DEG_S.items():
-        rate = low_pass(simulate_rate(GYRO, period, n, rng), period) / DEG + offset
+        model = GYRO * np.array([1.0, scale.get(name, 1.0) ** 2, 1.0, 1.0, 1.0])
+        rate = low_pass(simulate_rate(model, period, n, rng), period) / DEG + offset
         columns[f"{name} [deg/s]"] = np.round(rate / GYRO_LSB_DEG_S) * GYRO_LSB_DEG_S
     for name, offset in OFFSET_G.items():
         model = ACCEL_Z if name == "accel_z" else ACCEL
         acc = low_pass(simulate_rate(model, period, n, rng), period) / G + offset
         columns[f"{name} [g]"] = np.round(acc / ACCEL_LSB_G) * ACCEL_LSB_G
     keep = np.ones(n, dtype=bool)
-    start = int(DROPOUT_AT_S * RATE_HZ)
-    keep[start:start + int(DROPOUT_S * RATE_HZ)] = False
+    if dropout:
+        start = int(DROPOUT_AT_S * RATE_HZ)
+        keep[start:start + int(DROPOUT_S * RATE_HZ)] = False
     table = pa.table({k: v[keep] for k, v in columns.items()})
     tmp = path.with_suffix(".part")
     pq.write_table(table, tmp, compression="zstd", use_dictionary=[k for k in columns if k != "time [ns]"],
@@ -90,3 +105,6 @@ if __name__ == "__main__":
     out = Path(__file__).resolve().parent.parent / "recordings"
     make_static(out / "bench_static.parquet")
     print(f"wrote {out / 'bench_static.parquet'}")
+    make_static(out / "bench_static_swap.parquet", SWAP_SEED, SWAP_HOURS,
+                {"gyro_z": SWAP_GYRO_Z_WHITE}, dropout=False)
+    print(f"wrote {out / 'bench_static_swap.parquet'}")

@@ -15,6 +15,8 @@ from .targets import run_targets
 from .targets import summary as targets_summary
 
 RECORDING = "recordings/bench_static.parquet"
+SWAP = "recordings/bench_static_swap.parquet"
+"""The replacement unit's bench log (tools/make_demo_recordings.py): gyro_z noisier."""
 DRIVE = ("recordings/drive_linesensor.csv", "recordings/drive_truth.csv",
          "recordings/drive_map.yaml")
 YARD = ("recordings/yard_detections.csv", "recordings/yard_survey.csv",
@@ -35,8 +37,9 @@ def run_demo(root: str = ".", quiet: bool = False) -> str:
     """Run the demo from the project root; return what it prints.
 
     Writes ``static``, ``motion``, ``odometry`` and ``targets`` ``.yaml``, ``.png`` and
-    ``.html`` (the self-contained report), ``filter`` and ``consistency`` ``.yaml`` and
-    ``.html``, and the ROS 2 bag's outputs in ``reports/demo/``.
+    ``.html`` (the self-contained report), ``recheck`` (the replacement unit against
+    the first unit's block), ``filter`` and ``consistency`` ``.yaml`` and ``.html``, and
+    the ROS 2 bag's outputs in ``reports/demo/``.
     """
     base = Path(root)
     rec = base / RECORDING
@@ -50,6 +53,7 @@ def run_demo(root: str = ".", quiet: bool = False) -> str:
                         overwrite=True, quiet=quiet, command=f"noisecal demo ({RECORDING})",
                         report=str(out / "static.html"))
     text.append(summary(result))
+    text += ["", *_recheck(base, out, quiet)]
     sensor, truth, mapping = (str(base / p) for p in DRIVE)
     drive = run_motion(sensor, truth, str(out / "motion.yaml"), mapping,
                        str(out / "motion.png"), overwrite=True, quiet=quiet,
@@ -70,9 +74,21 @@ def run_demo(root: str = ".", quiet: bool = False) -> str:
     text += ["", *_filter(base, out, quiet)]
     text += ["", *_ros_bag(base, out, quiet)]
     text.append(f"\nwrote static, motion, odometry and targets .yaml, .png and .html (the "
-                f"report), filter and consistency .yaml and .html, and the ROS 2 bag's "
+                f"report), recheck, filter and consistency .yaml and .html, and the ROS 2 bag's "
                 f"static block, plot, report and parameter file into {out}")
     return "\n".join(text)
+
+
+def _recheck(base: Path, out: Path, quiet: bool) -> list:
+    """The replacement unit re-checked against the first unit's block just written."""
+    from .recheck import run_recheck
+    from .recheck import summary as recheck_summary
+
+    res = run_recheck(str(out / "static.yaml"), str(base / SWAP), str(out / "recheck.yaml"),
+                      overwrite=True,
+                      command=f"noisecal demo (recheck {OUT_DIR}/static.yaml {SWAP})",
+                      report=str(out / "recheck.html"))
+    return [recheck_summary(res)]
 
 
 def _filter(base: Path, out: Path, quiet: bool) -> list:
