@@ -27,8 +27,8 @@ DEFAULT_DRAWS = 2000
 CONVENTION = (
     "Q is the covariance of the process noise accumulated over one step dt (a discrete "
     "variance, state units squared): Q = integral over [0, dt] of e^(F s) G Qc G^T "
-    "e^(F^T s) ds (Van Loan 1978), from the continuous spectral densities Qc (one-sided, "
-    "u^2/Hz = u^2*s; a white-noise coefficient N gives q = N^2, a random walk K gives "
+    "e^(F^T s) ds (Van Loan 1978), from the continuous noise intensities Qc (E[w(t) w(s)^T] "
+    "= Qc delta(t - s), the two-sided spectral density, u^2/Hz = u^2*s; a white-noise coefficient N gives q = N^2, a random walk K gives "
     "q = K^2). For small F*dt, Q is about G Qc G^T * dt: density times dt, never density "
     "divided by dt. R is the variance of one measurement sample (N^2/dt for a sensor "
     "whose sample averages white noise over dt). Give Q and R to a filter stepping at dt.")

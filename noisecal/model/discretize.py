@@ -35,7 +35,8 @@ def van_loan(F: np.ndarray, G: np.ndarray, Qc: np.ndarray, dt: float):
     G : ndarray, shape (n, s)
         Noise input matrix.
     Qc : ndarray, shape (s, s)
-        Spectral density of the white noise w (one-sided, u²/Hz), symmetric PSD.
+        Intensity of the white noise w, E[w(t) w(s)ᵀ] = Qc δ(t − s) (two-sided spectral
+        density, u²/Hz), symmetric positive semidefinite.
     dt : float
         Step, s.
 

@@ -8,7 +8,8 @@ after this module parses text.
 
 Conventions (SI throughout)
 ---------------------------
-- A noise source is white noise of one-sided spectral density ``q`` (u²/Hz = u²·s):
+- A noise source is white noise of intensity ``q``, E[w(t) w(s)] = q δ(t − s) (the
+  two-sided spectral density, u²/Hz = u²·s; IEEE Std 952's N² — the one-sided PSD is 2q):
   ``q = N²`` for a static block's white noise N, ``q = K²`` for its bias random
   walk K, ``q = density²`` for a number given as an amplitude density.
 - Continuous model: dx/dt = F x + Σ g_i w_i, g_i the source's column of G.
