@@ -105,13 +105,23 @@ def _listing(topics: dict) -> str:
 
 def _open_reader(path: Path):
     from rosbags.highlevel import AnyReader
+    from rosbags.typesys import Stores, get_typestore
 
     try:
-        reader = AnyReader([path])
+        # rosbag2 stored no message definitions before Iron (a Humble sqlite3 bag has
+        # none): the standard ones serve, used only where the bag brings none.
+        reader = AnyReader([path], default_typestore=get_typestore(Stores.ROS2_HUMBLE))
         reader.open()
     except Exception as exc:  # rosbags raises its own errors, sqlite3, struct, OSError, …
         raise _bad_bag(path, exc) from None
     return reader
+
+
+def _without_definitions(reader) -> bool:
+    """Whether the bag brought no message definitions of its own."""
+    from rosbags.interfaces import MessageDefinitionFormat
+
+    return all(c.msgdef.format == MessageDefinitionFormat.NONE for c in reader.connections)
 
 
 def topics(path: str | Path) -> dict:
@@ -177,6 +187,9 @@ class BagSource:
             self.topic = _choose(path, have, topic, msgtype)
             self.msgtype = have[self.topic]
             self._decode(reader)
+            if _without_definitions(reader):
+                self.notes += ("the bag stores no message definitions (rosbag2 before Iron): "
+                               "the standard ROS 2 Humble definitions were used",)
         except InputError:
             raise
         except Exception as exc:  # decoding a damaged or cut-off bag

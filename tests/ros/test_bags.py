@@ -134,3 +134,23 @@ def test_header_less_message_uses_record_time_and_says_so(tmp_path):
     np.testing.assert_array_equal(np.round(rec.time * 1e9).astype(np.int64), rec_ns - rec_ns[0])
     np.testing.assert_array_equal(rec.channel("data"), np.arange(30.0))
     assert any("no header: the bag's record time" in n for n in rec.source.notes)
+
+
+def test_ros2_bag_without_stored_definitions(tmp_path, data):
+    """A ROS 2 sqlite3 bag whose message definitions are not stored (rosbag2 before
+    Iron stored none) reads with the standard definitions: same stamps and values as
+    the bag with them (common practice, no source: sensor_msgs/Imu is the same message
+    in every ROS 2 distribution)."""
+    import sqlite3
+
+    bag = write_bag(tmp_path / "humble", "ros2-sqlite3", data)
+    for db in bag.glob("*.db3"):
+        con = sqlite3.connect(db)
+        con.execute("DELETE FROM message_definitions")
+        con.commit()
+        con.close()
+    src = BagSource(bag, "/imu")
+    np.testing.assert_array_equal(src._time, data.stamps)
+    rec = read_recording(RosInput(str(bag), "/imu"))
+    np.testing.assert_array_equal(rec.channel("angular_velocity.y"), data.gyro[:, 1])
+    assert any("definitions" in n for n in rec.source.notes), rec.source.notes
