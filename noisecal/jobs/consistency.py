@@ -538,12 +538,12 @@ def run_consistency(log_paths: list, model_path: str, out: str, estimate: bool =
         HTML report path (self-contained), written together with the YAML block.
     """
     from ..ingest import read_recording
-    from .filter import report_target
+    from .static import _report_path
 
     out_path = yaml_output(out, list(log_paths) + [model_path], overwrite,
                            getattr(record, "paths", ()))
-    report_path = report_target(report, list(log_paths) + [model_path], overwrite, record,
-                                out_path)
+    report_path = _report_path(report, list(log_paths) + [model_path], overwrite, record,
+                               out_path)
     model = read_model(model_path)
     logs = [read_recording(p, use_cache=use_cache) for p in log_paths]
     result = check(model, logs, estimate, lags, reps, seed, level, command)

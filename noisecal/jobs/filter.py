@@ -380,7 +380,9 @@ def run_filter(model_path: str, out: str, draws: int = DEFAULT_DRAWS, seed: int 
         HTML report path (self-contained), written together with the YAML block.
     """
     out_path = yaml_output(out, [model_path], overwrite, getattr(record, "paths", ()))
-    report_path = report_target(report, [model_path], overwrite, record, out_path)
+    from .static import _report_path
+
+    report_path = _report_path(report, [model_path], overwrite, record, out_path)
     if not isinstance(draws, int) or isinstance(draws, bool):
         raise ParameterError("draws", draws, "give a whole number")
     result = discretise(read_model(model_path), draws, seed, command)
@@ -393,12 +395,3 @@ def run_filter(model_path: str, out: str, draws: int = DEFAULT_DRAWS, seed: int 
         staged.commit(record(result) if record else None)
     return result
 
-
-def report_target(report, inputs, overwrite: bool, record, *outputs):
-    """The ``--report`` path checked before any work (None without one)."""
-    if report is None:
-        return None
-    from ..export.html import check_report_path
-
-    return check_report_path(report, list(inputs) + list(getattr(record, "paths", ())),
-                             overwrite, [o for o in outputs if o is not None])
