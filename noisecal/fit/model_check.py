@@ -59,15 +59,20 @@ def spikes(y: np.ndarray, period: float) -> tuple:
     n = y.shape[0]
     if n < 8:
         return (0, None)
+    from ..analysis.engine import beyond, median_select
+
     d = np.diff(y)
-    sigma = 1.4826 * float(np.median(np.abs(d - np.median(d)))) / np.sqrt(2.0)
+    # np.median's values, by a counting pass (the two full medians cost 50 ms).
+    sigma = 1.4826 * median_select(d, centre=median_select(d)) / np.sqrt(2.0)
     if sigma <= 0:
         return (0, None)
     # A sample K σ from the median of its five-sample window differs by more than K σ
     # from at least two of its four neighbours, so one of the four steps about it
     # exceeds K σ/2: only those few candidates need the median (a full median filter
     # cost 0.2 s per channel on 2^21 samples).
-    big = np.flatnonzero(np.abs(d) > SPIKE_SIGMAS * sigma / 2.0)
+    big = beyond(d, SPIKE_SIGMAS * sigma / 2.0)
+    if big.size == 0:
+        return (0, None)
     cand = np.unique(np.clip((big[:, None] + np.arange(-1, 3)).ravel(), 0, n - 1))
     window = np.clip(cand[:, None] + np.arange(-2, 3), 0, n - 1)
     med = np.median(y[window], axis=1)
