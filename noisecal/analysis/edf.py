@@ -13,6 +13,8 @@ Table 7: few-cluster noise identification and the total variance EDF.
 
 from __future__ import annotations
 
+import functools
+
 import numpy as np
 from scipy import stats
 
@@ -44,6 +46,21 @@ def noise_id_lag1(y: np.ndarray, m: int, dmax: int = 2) -> int | None:
 
     return compiled(np.asarray(y, dtype=np.float64), int(m), int(dmax), MIN_BLOCKS,
                     MAX_BLOCKS)
+
+
+def noise_ids_lag1(y: np.ndarray, ms: np.ndarray, dmax: int = 2) -> list:
+    """:func:`noise_id_lag1` at several factors (compiled; one pass over the samples
+    for an octave grid, see :func:`noisecal.analysis.engine.noise_ids_lag1`).
+
+    Returns
+    -------
+    list of (int or None)
+        Per factor, as :func:`noise_id_lag1`.
+    """
+    from .engine import noise_ids_lag1 as compiled
+
+    return compiled(np.asarray(y, dtype=np.float64), np.asarray(ms, dtype=np.int64),
+                    int(dmax), MIN_BLOCKS, MAX_BLOCKS)
 
 
 def noise_id_lag1_reference(y: np.ndarray, m: int, dmax: int = 2) -> int | None:
@@ -127,12 +144,19 @@ def edf(alpha: int, d: int, m: int, n_phase: int, overlapping: bool, modified: b
     overlapping, modified : bool
         Estimator form.
     """
+    return _edf(clamp_alpha(alpha, d), int(d), int(m), int(n_phase), bool(overlapping),
+                bool(modified))
+
+
+@functools.lru_cache(maxsize=1 << 14)
+def _edf(alpha: int, d: int, m: int, n_phase: int, overlapping: bool, modified: bool) -> float:
+    # Cached: the channels of a recording share their runs and taus, and the dense
+    # grids repeat the octave's shortest taus; a few-cluster EDF costs ~1 ms.
     import allantools
 
     try:
-        value = float(allantools.edf_greenhall(alpha=clamp_alpha(alpha, d), d=d, m=int(m),
-                                               N=int(n_phase), overlapping=overlapping,
-                                               modified=modified))
+        value = float(allantools.edf_greenhall(alpha=alpha, d=d, m=m, N=n_phase,
+                                               overlapping=overlapping, modified=modified))
     except Exception:  # outside the algorithm's cases: fall back to the term count
         value = float("nan")
     if not np.isfinite(value) or value <= 0:
