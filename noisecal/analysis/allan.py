@@ -233,6 +233,77 @@ def deviation(y: np.ndarray, period: float, m: np.ndarray, kind: str = "oadev",
     return dev, count
 
 
+def deviations(y: np.ndarray, period: float, requests: list[tuple[str, np.ndarray]],
+               segments: list[tuple[int, int]] | None = None) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Several deviations of one channel from one phase per segment.
+
+    The same numbers as :func:`deviation` called once per request (compiled
+    engine), but each segment is integrated once, and the overlapping Allan and
+    Hadamard factors of all requests are summed in one pass over the phase
+    (:func:`noisecal.analysis.engine.overlapping_sums`).
+
+    Parameters
+    ----------
+    y : ndarray, shape (n,)
+        Rate samples, unit u.
+    period : float
+        Sample period, s.
+    requests : list of (str, ndarray of int)
+        (kind, averaging factors) pairs; kinds as in :func:`deviation`.
+    segments : list of (start, stop), optional
+        Contiguous index ranges; terms never span two segments.
+
+    Returns
+    -------
+    list of (dev, n_terms)
+        Per request, as :func:`deviation` returns them.
+    """
+    from .engine import overlapping_sums, sum_squares
+
+    y = np.asarray(y, dtype=np.float64)
+    segments = segments or [(0, y.shape[0])]
+    requests = [(kind, np.asarray(m, dtype=np.int64)) for kind, m in requests]
+    for kind, _ in requests:
+        if kind not in KINDS:
+            raise ValueError(f"unknown deviation kind {kind!r}")
+    if any(kind == "totdev" for kind, _ in requests):
+        # Reflected phase, one segment: no sharing to gain.
+        return [deviation(y, period, m, kind, segments) for kind, m in requests]
+    totals = [np.zeros(m.shape[0]) for _, m in requests]
+    counts = [np.zeros(m.shape[0], dtype=np.int64) for _, m in requests]
+    allan = [j for j, (kind, _) in enumerate(requests) if kind == "oadev"]
+    hadamard = [j for j, (kind, _) in enumerate(requests) if kind == "ohdev"]
+    empty = np.empty(0, dtype=np.int64)
+
+    def joined(idx):
+        return np.concatenate([requests[j][1] for j in idx]) if idx else empty
+
+    for a, b in segments:
+        x = phase(y[a:b], period)
+        sa, ca, sh, ch = overlapping_sums(x, joined(allan), joined(hadamard))
+        for idx, s, c in ((allan, sa, ca), (hadamard, sh, ch)):
+            at = 0
+            for j in idx:
+                k = requests[j][1].shape[0]
+                totals[j] += s[at:at + k]
+                counts[j] += c[at:at + k]
+                at += k
+        for j, (kind, m) in enumerate(requests):
+            if kind not in ("oadev", "ohdev"):
+                s, c = sum_squares(x, m, kind)
+                totals[j] += s
+                counts[j] += c
+    out = []
+    for (kind, m), total, count in zip(requests, totals, counts):
+        dev = np.full(m.shape[0], np.nan)
+        taus = m.astype(np.float64) * period
+        scale = 6.0 if diff_order(kind) == 3 else 2.0
+        ok = count > 0
+        dev[ok] = np.sqrt(total[ok] / (scale * taus[ok] ** 2 * count[ok]))
+        out.append((dev, count))
+    return out
+
+
 def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
                 grid: str | np.ndarray = "octave",
                 segments: list[tuple[int, int]] | None = None,
@@ -273,18 +344,73 @@ def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
         averages) ``edf`` is the smallest EDF over the noise types the estimator
         admits and ``alpha`` the type that gives it.
     """
+    segments = segments or [(0, y.shape[0])]
+    m = _factors(segments, kind, grid, per_decade)
+    dev, n_terms = deviation(y, period, m, kind, segments)
+    return _curve(y, period, unit, kind, m, dev, n_terms, segments, level, noise_from)
+
+
+def allan_curves(y: np.ndarray, period: float, unit: str, specs: list[tuple],
+                 segments: list[tuple[int, int]] | None = None, level: float = 0.95,
+                 per_decade: int = 10) -> list:
+    """Several curves of one channel: :func:`allan_curve` for each, sharing the work.
+
+    One phase per segment and one pass over it for all the overlapping Allan and
+    Hadamard factors (:func:`deviations`); a curve may take its noise types
+    from an earlier one. The curves are those :func:`allan_curve` gives.
+
+    Parameters
+    ----------
+    y : ndarray, shape (n,)
+        Rate samples of one channel, unit ``unit``.
+    period : float
+        Sample period, s.
+    unit : str
+        Channel unit (SI).
+    specs : list of (kind, grid, noise_from)
+        Per curve: deviation kind, tau grid (as in :func:`allan_curve`) and the
+        index of an earlier curve in ``specs`` to take noise types from, or None.
+    segments : list of (start, stop), optional
+        Contiguous runs between gaps.
+    level : float
+        Confidence level of the per-point intervals.
+    per_decade : int
+        Density of the dense grids.
+
+    Returns
+    -------
+    list of AllanCurve
+        In the order of ``specs``.
+    """
+    segments = segments or [(0, y.shape[0])]
+    factors = [_factors(segments, kind, grid, per_decade) for kind, grid, _ in specs]
+    devs = deviations(y, period, [(kind, m) for (kind, _, _), m in zip(specs, factors)],
+                      segments)
+    curves = []
+    for (kind, _, source), m, (dev, n_terms) in zip(specs, factors, devs):
+        if source is not None and not 0 <= source < len(curves):
+            raise ValueError(f"noise_from index {source} names no earlier curve")
+        curves.append(_curve(y, period, unit, kind, m, dev, n_terms, segments, level,
+                             None if source is None else curves[source]))
+    return curves
+
+
+def _factors(segments: list[tuple[int, int]], kind: str, grid, per_decade: int) -> np.ndarray:
+    """Averaging factors of a named grid over the longest segment, or those given."""
+    if isinstance(grid, str):
+        longest = max(b - a for a, b in segments)
+        return factor_grid(int(longest), kind, grid, per_decade)
+    return np.asarray(grid, dtype=np.int64)
+
+
+def _curve(y, period, unit, kind, m, dev, n_terms, segments, level, noise_from):
+    """Noise types, EDFs and intervals of computed deviations: an AllanCurve."""
     from ..types import AllanCurve
     from .edf import (MIN_BLOCKS, chi2_interval, clamp_alpha, conservative_edf,
-                      noise_id_lag1, pooled_edf)
+                      noise_id_lag1, noise_ids_lag1, pooled_edf)
 
-    segments = segments or [(0, y.shape[0])]
     lengths = np.array([b - a for a, b in segments])
     longest = segments[int(np.argmax(lengths))]
-    if isinstance(grid, str):
-        m = factor_grid(int(lengths.max()), kind, grid, per_decade)
-    else:
-        m = np.asarray(grid, dtype=np.int64)
-    dev, n_terms = deviation(y, period, m, kind, segments)
     keep = n_terms > 0
     m, dev, n_terms = m[keep], dev[keep], n_terms[keep]
     taus = m * period
@@ -301,7 +427,7 @@ def allan_curve(y: np.ndarray, period: float, unit: str, kind: str = "oadev",
         ident = [(int(noise_from.alpha[k]) if src_ok[k] else noise_id_lag1(y_long, int(mj), dmax=d))
                  if ok else None for k, mj, ok in zip(near, m, enough)]
     else:
-        ident = [noise_id_lag1(y_long, int(mj), dmax=d) for mj in m]
+        ident = noise_ids_lag1(y_long, m, dmax=d)
     identified = np.array([a is not None for a in ident], dtype=bool)
     alphas = np.empty(m.shape[0], dtype=np.int64)
     nu = np.empty(m.shape[0])

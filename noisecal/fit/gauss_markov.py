@@ -23,6 +23,7 @@ from numba import njit
 from ..types import AllanCurve, Estimate
 from ..units import derived_unit
 from .ieee952 import pivot_interval, replicate_curves, weighted_nnls
+from .select_kernel import nnls
 from .simulate import RateModel, basis, gm_avar
 
 GRID_POINTS = 32
@@ -42,55 +43,6 @@ def _fit_one(taus: np.ndarray, avar: np.ndarray, nu: np.ndarray, grid: np.ndarra
         if cost < best[0]:
             best = (cost, c[:2], float(np.sqrt(c[2])), float(T))
     return best[1], best[2], best[3]
-
-
-@njit(cache=True, nogil=True)
-def _nnls_small(M, b, x):
-    """Exact NNLS for at most 3 columns: the least residual over the active sets whose
-    unconstrained solution is positive (the NNLS optimum is one of them)."""
-    p = M.shape[1]
-    G = M.T @ M
-    h = M.T @ b
-    best = 0.0
-    for i in range(b.shape[0]):
-        best += b[i] * b[i]
-    x[:] = 0.0
-    sol = np.zeros(p)
-    for mask in range(1, 1 << p):
-        idx = np.array([j for j in range(p) if mask >> j & 1])
-        q = idx.shape[0]
-        Gs = np.empty((q, q))
-        hs = np.empty(q)
-        for a in range(q):
-            hs[a] = h[idx[a]]
-            for c in range(q):
-                Gs[a, c] = G[idx[a], idx[c]]
-        if q == 1:
-            if Gs[0, 0] <= 0.0:
-                continue
-            z = hs / Gs[0, 0]
-        elif q == 2:
-            det = Gs[0, 0] * Gs[1, 1] - Gs[0, 1] * Gs[1, 0]
-            if det <= 0.0:
-                continue
-            z = np.array([(Gs[1, 1] * hs[0] - Gs[0, 1] * hs[1]) / det,
-                          (Gs[0, 0] * hs[1] - Gs[1, 0] * hs[0]) / det])
-        else:
-            det = np.linalg.det(Gs)
-            if det <= 0.0:
-                continue
-            z = np.linalg.solve(Gs, hs)
-        if np.any(z <= 0.0):
-            continue
-        sol[:] = 0.0
-        for a in range(q):
-            sol[idx[a]] = z[a]
-        r = M @ sol - b
-        res = np.dot(r, r)
-        if res < best:
-            best = res
-            x[:] = sol
-    return x
 
 
 @njit(cache=True, nogil=True)
@@ -116,7 +68,7 @@ def _fit_many_kernel(base, gm_cols, sims, nu, out):
             for _ in range(2):  # weighted_nnls with passes=1
                 w = w0 / ref
                 M = A * w[:, None] / col[None, :]
-                _nnls_small(M, avar * w, x)
+                nnls(M, avar * w, x)
                 c = x / col
                 model = A @ c
                 for i in range(k):
@@ -152,8 +104,8 @@ def _fit_many(taus: np.ndarray, sims: np.ndarray, nu: np.ndarray,
     -------
     ndarray, shape (reps, 2)
         Sigma (u) and correlation time (s) of each replicate. The same numbers
-        as the scipy path to rounding (NNLS of three columns solved exactly by
-        its active sets; tested against ``_fit_one``).
+        as the scipy path to rounding (Lawson–Hanson NNLS,
+        :func:`noisecal.fit.select_kernel.nnls`; tested against ``_fit_one``).
     """
     gm_cols = np.array([np.concatenate([[T], gm_avar(taus, 1.0, T)]) for T in grid])
     out = np.empty((sims.shape[0], 2))

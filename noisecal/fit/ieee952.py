@@ -61,6 +61,19 @@ def weighted_nnls(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
     -------
     c : ndarray, shape (p,)
     """
+    from .select_kernel import weighted_nnls as compiled
+
+    c = np.zeros(A.shape[1])
+    compiled(np.ascontiguousarray(A, dtype=np.float64),
+             np.ascontiguousarray(avar, dtype=np.float64),
+             np.ascontiguousarray(nu, dtype=np.float64), int(passes), c)
+    return c
+
+
+def weighted_nnls_reference(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
+                            passes: int = REWEIGHT_PASSES) -> np.ndarray:
+    """:func:`weighted_nnls` with scipy's NNLS (the specification the compiled
+    path is tested against). Parameters and result as there."""
     scale = np.sqrt(nu / 2.0)
     ref = avar
     c = np.zeros(A.shape[1])
@@ -448,20 +461,39 @@ class TermFit:
         return float(-2.0 * self.c2[0] / self.c2[1])
 
 
+REPLICATES = "exact"
+"""How the parametric bootstraps draw replicate curves of a :class:`RateModel`:
+``"exact"`` from the Allan points' exact covariance (:mod:`noisecal.fit.avar_cov`),
+``"simulated"`` by simulating records (:func:`noisecal.fit.simulate.replicate_avar`)."""
+
+
 def replicate_curves(simulate, expected, period: float, m: np.ndarray,
                      segments: list[tuple[int, int]], reps: int, seed: int,
-                     progress=None) -> np.ndarray:
-    """Allan variance curves of records simulated from a fitted model.
+                     progress=None, how: str | None = None) -> np.ndarray:
+    """Allan variance curves of records drawn from a fitted model.
 
     When ``simulate`` is a :class:`noisecal.fit.simulate.RateModel` the
-    replicates are simulated in compiled batches on all cores
-    (:func:`noisecal.fit.simulate.replicate_avar`: the same scheme and the
-    same distribution, tested); any other callable takes
-    :func:`replicate_curves_reference`. Parameters and result as there.
+    replicates are drawn, by default (``how`` = :data:`REPLICATES`,
+    ``"exact"``), from the exact covariance of the overlapping Allan points
+    under that model with chi-square marginals
+    (:func:`noisecal.fit.avar_cov.replicate_avar`: milliseconds, exact for
+    records of any length and gap layout); with ``how="simulated"`` records
+    are simulated in compiled batches (:func:`noisecal.fit.simulate.replicate_avar`:
+    the two-level scheme of :func:`replicate_curves_reference`). Any other
+    callable takes :func:`replicate_curves_reference`. Parameters and result
+    as there.
     """
     from .simulate import RateModel, replicate_avar
 
     if isinstance(simulate, RateModel):
+        if (how or REPLICATES) == "exact":
+            from .avar_cov import replicate_avar as exact
+
+            out = exact(simulate.c2, period, m, segments, reps, seed,
+                        low_pass=simulate.low_pass, gm=simulate.gm)
+            if progress:
+                progress(reps)
+            return out
         return replicate_avar(simulate, expected, period, m, segments, reps, seed,
                               progress, full_max=FULL_SIM_MAX)
     return replicate_curves_reference(simulate, expected, period, m, segments, reps, seed,
@@ -610,13 +642,45 @@ def fit_terms(curve: AllanCurve, period: float, segments: list[tuple[int, int]],
     lag = 2.0 * sel.c6[5] / sel.c6[1] if sel.c6[5] > 0 else 0.0
     sims = replicate_curves(RateModel(truth, low_pass=lag), lambda t: basis6(t) @ sel.c6,
                             period, curve.m, segments, reps, seed, progress)
-    Au, nuu = A[used], nu[used]
-    near = neighbours(sel.cols)
-    boot6 = np.array([select_structure(Au, s[used], nuu, candidates=near).c6 for s in sims])
-    dev_rep = np.array([misfit(Au, s[used], nuu, b) for s, b in zip(sims, boot6)])
+    boot6, dev_rep = select_replicates(A[used], sims[:, used], nu[used], neighbours(sel.cols))
     return TermFit(c2=c2, replicates=signed(boot6), replicate_avar=sims, seed=seed,
-                   used=used, selection=sel, deviance=misfit(Au, avar[used], nuu, sel.c6),
+                   used=used, selection=sel, deviance=misfit(A[used], avar[used], nu[used], sel.c6),
                    replicate_deviance=dev_rep)
+
+
+def select_replicates(A: np.ndarray, sims: np.ndarray, nu: np.ndarray,
+                      candidates: list) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`select_structure` among ``candidates`` on every replicate, and the
+    chosen fit's deviance (:func:`misfit`), in compiled code
+    (:func:`noisecal.fit.select_kernel.select_many`).
+
+    Parameters
+    ----------
+    A : ndarray, shape (k, 6)
+    sims : ndarray, shape (reps, k)
+    nu : ndarray, shape (k,)
+    candidates : list of tuple of int
+
+    Returns
+    -------
+    c6 : ndarray, shape (reps, 6)
+    deviance : ndarray, shape (reps,)
+    """
+    from .select_kernel import select_many
+
+    cands = np.zeros((len(candidates), 6), dtype=bool)
+    for i, cols in enumerate(candidates):
+        cands[i, list(cols)] = True
+    index = {tuple(c): i for i, c in enumerate(candidates)}
+    walk_of = np.array([index.get(_walk_for_instability(tuple(c)) or (), -1)
+                        for c in candidates], dtype=np.int64)
+    out = np.empty((sims.shape[0], 6))
+    dev = np.empty(sims.shape[0])
+    select_many(np.ascontiguousarray(A, dtype=np.float64),
+                np.ascontiguousarray(sims, dtype=np.float64),
+                np.ascontiguousarray(nu, dtype=np.float64), cands, walk_of, PENALTY,
+                BAND_LIMIT_PENALTY, NEAR_TIE, RANDOM_WALK_BAND, REWEIGHT_PASSES, out, dev)
+    return out, dev
 
 
 def harrell_davis(values: np.ndarray, probs) -> np.ndarray:

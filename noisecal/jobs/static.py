@@ -244,9 +244,13 @@ def _channel(rec: Recording, name: str, reps: int, seed: int, bar):
     segments = rec.segments
     a, b = max(segments, key=lambda s: s[1] - s[0])
     bar.set_description(f"{name}: deviations")
-    curve = allan_curve(y, rec.period, unit, "oadev", "octave", segments)
-    dense = allan_curve(y, rec.period, unit, "oadev", "dense", segments, noise_from=curve)
-    hadamard = allan_curve(y, rec.period, unit, "ohdev", "dense", segments, noise_from=curve)
+    from ..analysis.allan import allan_curves
+
+    # One phase and one pass over it for the three curves; the dense ones take
+    # their noise types from the octave curve.
+    curve, dense, hadamard = allan_curves(
+        y, rec.period, unit, [("oadev", "octave", None), ("oadev", "dense", 0),
+                              ("ohdev", "dense", 0)], segments)
     bar.set_description(f"{name}: bootstrap")
     fit = fit_terms(curve, rec.period, segments, reps=reps, seed=seed, progress=bar.update)
     terms = term_estimates(fit, curve)
