@@ -140,3 +140,32 @@ def test_edf_is_greenhall_riley_for_the_identified_noise(kind, d, modified):
                                     modified=modified) for a, m in zip(c.alpha, c.m)]
     np.testing.assert_allclose(c.edf, ref, rtol=1e-12)
     assert set(c.alpha[c.m <= n // 100]) == {0}
+
+
+def test_curves_together_equal_curves_one_by_one():
+    """``allan_curves`` (one phase, one pass for all factors) gives the curves of
+    separate ``allan_curve`` calls, gaps included (common practice, no source: the
+    same terms summed in the same blocks; 1e-13 for the compiler's vector lanes)."""
+    from noisecal.analysis.allan import allan_curves
+
+    rng = np.random.default_rng(11)
+    n = 400_000
+    y = rng.standard_normal(n) + np.cumsum(rng.standard_normal(n)) * 1e-3
+    segments = [(0, 150_000), (150_010, n)]
+    together = allan_curves(y, 0.01, "rad/s", [("oadev", "octave", None),
+                                               ("oadev", "dense", 0), ("ohdev", "dense", 0),
+                                               ("mdev", "octave", None)], segments)
+    octave = allan_curve(y, 0.01, "rad/s", "oadev", "octave", segments)
+    alone = [octave,
+             allan_curve(y, 0.01, "rad/s", "oadev", "dense", segments, noise_from=octave),
+             allan_curve(y, 0.01, "rad/s", "ohdev", "dense", segments, noise_from=octave),
+             allan_curve(y, 0.01, "rad/s", "mdev", "octave", segments)]
+    for got, want in zip(together, alone):
+        assert got.kind == want.kind
+        np.testing.assert_array_equal(got.m, want.m)
+        np.testing.assert_array_equal(got.n_terms, want.n_terms)
+        np.testing.assert_array_equal(got.alpha, want.alpha)
+        np.testing.assert_array_equal(got.identified, want.identified)
+        np.testing.assert_array_equal(got.edf, want.edf)
+        for field in ("dev", "lower", "upper"):
+            np.testing.assert_allclose(getattr(got, field), getattr(want, field), rtol=1e-13)
