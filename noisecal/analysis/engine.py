@@ -634,7 +634,9 @@ def welch_linear(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np
     over segments: scipy's defaults, with the segments detrended and
     transformed ``WELCH_CHUNK`` at a time instead of one ``detrend`` call per
     segment (most of scipy's time here): 2.6-4x faster on 2^21 samples, same
-    process. Same numbers to rounding (tested against scipy).
+    process; the detrend, window and power sum are compiled loops (a further
+    3x less CPU time: no BLAS threads, no temporaries). Same numbers to
+    rounding (tested against scipy).
 
     Parameters
     ----------
@@ -652,25 +654,53 @@ def welch_linear(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np
     psd : ndarray, shape (nperseg // 2 + 1,)
         u²/Hz.
     """
-    from numpy.lib.stride_tricks import sliding_window_view
     from scipy import fft
 
-    x = np.asarray(x, dtype=np.float64)
+    x = np.ascontiguousarray(x, dtype=np.float64)
     step = nperseg - nperseg // 2
-    segs = sliding_window_view(x, nperseg)[::step]
+    count = (x.shape[0] - nperseg) // step + 1
     win = 0.5 - 0.5 * np.cos(2.0 * np.pi * np.arange(nperseg) / nperseg)
     t = np.arange(nperseg) - (nperseg - 1) / 2.0
     tt = float(t @ t)
     acc = np.zeros(nperseg // 2 + 1)
-    for a in range(0, segs.shape[0], WELCH_CHUNK):
-        block = np.array(segs[a:a + WELCH_CHUNK])
-        block -= block.mean(axis=1, keepdims=True) + np.outer(block @ t / tt, t)
-        block *= win
-        spec = fft.rfft(block, axis=1)
-        acc += (spec.real ** 2 + spec.imag ** 2).sum(axis=0)
-    psd = acc / (segs.shape[0] * fs * float(win @ win))
+    block = np.empty((min(WELCH_CHUNK, count), nperseg))
+    for a in range(0, count, WELCH_CHUNK):
+        rows = min(WELCH_CHUNK, count - a)
+        _detrended(x, a * step, step, t, tt, win, block[:rows])
+        _add_power(fft.rfft(block[:rows], axis=1), acc)
+    psd = acc / (count * fs * float(win @ win))
     psd[1:-1 if nperseg % 2 == 0 else None] *= 2.0
     return np.fft.rfftfreq(nperseg, 1.0 / fs), psd
+
+
+@njit(cache=True, nogil=True)
+def _detrended(x, start, step, t, tt, win, out):
+    # Segments from ``start``, each less its least-squares line, times the window:
+    # one pass, no BLAS (its threads idle-spin, doubling the CPU time).
+    n = out.shape[1]
+    for r in range(out.shape[0]):
+        a = start + r * step
+        s = 0.0
+        st = 0.0
+        for i in range(n):
+            s += x[a + i]
+            st += x[a + i] * t[i]
+        mean = s / n
+        slope = st / tt
+        for i in range(n):
+            out[r, i] = (x[a + i] - (mean + slope * t[i])) * win[i]
+
+
+@njit(cache=True, nogil=True)
+def _add_power(spec, acc):
+    # |X|² summed over the chunk's segments, then added: numpy's order.
+    chunk = np.zeros(acc.shape[0])
+    for r in range(spec.shape[0]):
+        for k in range(spec.shape[1]):
+            c = spec[r, k]
+            chunk[k] += c.real * c.real + c.imag * c.imag
+    for k in range(acc.shape[0]):
+        acc[k] += chunk[k]
 
 
 # --- Exact medians by one counting pass ---------------------------------------
