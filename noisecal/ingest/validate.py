@@ -82,35 +82,17 @@ def stream(source, header: Header, sink, repair: str | None = None, progress=Non
             raise InputError(f"{path}: {len(cols) + 1} columns where the header has "
                              f"{len(header.names) + 1}")
         time = exact_time(source, time, rows)
-        if time.dtype.kind == "f" and not np.isfinite(time).all():
-            row = rows + int(np.flatnonzero(~np.isfinite(time))[0])
-            raise InputError(f"{path}, {source.locate(row)}, column 'time': not a finite "
-                             "number; fix or remove the row")
-        for name, col in zip(header.names, cols):
-            finite = np.isfinite(col)
-            if not finite.all():
-                row = rows + int(np.flatnonzero(~finite)[0])
-                raise InputError(f"{path}, {source.locate(row)}, column {name!r}: "
-                                 f"{col[row - rows]} is not a finite number; remove the row "
-                                 "(the gap will be detected) or fix the logger")
         if t0 is None:
             t0 = time[0]
-        steps = np.diff(time) if last is None else np.diff(np.concatenate([[last], time]))
-        bad = np.flatnonzero(steps <= 0)
-        if bad.size and repair is None:
-            first = int(bad[0])
-            _order_error(source, rows + first + (1 if last is None else 0), steps[first], bad.size)
+        quick = _quick_block(time, cols, header, t0, last, rel_last) if repair is None else None
+        if quick is not None:
+            rel, si, block_peak = quick
+            np.maximum(peak, block_peak, out=peak)
+        else:
+            rel, si = _checked_block(source, header, time, cols, t0, last, rel_last, rows,
+                                     repair, peak)
         last = time[-1]
-        # Relative time before scaling keeps integer nanoseconds exact.
-        with np.errstate(over="ignore", invalid="ignore"):
-            rel = (time - t0).astype(np.float64) * header.time_scale
-        _check_seconds(source, rel, rel_last, rows, repair)
         rel_last = rel[-1]
-        with np.errstate(over="ignore", under="ignore", invalid="ignore"):
-            si = [c * s + o if o else c * s
-                  for c, s, o in zip(cols, header.scale, header.offset)]
-        for i, (name, col, unit) in enumerate(zip(header.names, si, header.source_units)):
-            peak[i] = max(peak[i], _check_si(source, name, unit, col, rows))
         sink.append(rel, si)
         rows += time.shape[0]
     for name, unit, top in zip(header.names, header.source_units, peak):
@@ -119,6 +101,88 @@ def stream(source, header: Header, sink, repair: str | None = None, progress=Non
                              f"in SI (largest {top:.3g}); check the unit [{unit}] or rescale "
                              "the column")
     return float(t0) * header.time_scale
+
+
+def _quick_block(time, cols, header: Header, t0, last, rel_last):
+    """A block's SI columns when it passes every check, found by reductions; else None.
+
+    The same checks as :func:`_checked_block`, in a few passes without
+    temporaries: times strictly increasing with finite ends are all finite;
+    an affine map with rounding is monotonic, so a column's extremes in SI
+    are its extremes converted, and a NaN makes a column's max NaN. None
+    sends the block through the full checks, which name the first bad row.
+
+    Returns
+    -------
+    (rel, si, peak) or None
+        Relative time (s), SI columns (a column already in SI is passed on as
+        is) and each column's largest magnitude in SI.
+    """
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        if time.dtype.kind == "f" and not (np.isfinite(time[0]) and np.isfinite(time[-1])):
+            return None
+        # The step from the previous block as np.diff takes it (int64 wraps alike).
+        if last is not None and not np.subtract(time[:1], last)[0] > 0:
+            return None
+        if time.shape[0] > 1 and not np.diff(time).min() > 0:
+            return None
+        rel = (time - t0).astype(np.float64) * header.time_scale
+        if not (np.isfinite(rel[0]) and np.isfinite(rel[-1])):
+            return None
+        if rel_last is not None and not rel[0] - rel_last >= MIN_STEP_S:
+            return None
+        if rel.shape[0] > 1 and not np.diff(rel).min() >= MIN_STEP_S:
+            return None
+        si, peak = [], np.empty(len(cols))
+        for i, (c, s, o) in enumerate(zip(cols, header.scale, header.offset)):
+            hi, lo = c.max(), c.min()
+            if not (np.isfinite(hi) and np.isfinite(lo)):
+                return None
+            ends = np.array([hi, lo], dtype=np.float64) * s
+            if o:
+                ends = ends + o
+            top = float(np.max(np.abs(ends)))
+            if not top <= SI_LIMIT:
+                return None
+            peak[i] = top
+            if s == 1.0 and not o and c.dtype == np.float64:
+                si.append(c)
+            else:
+                si.append(c * s + o if o else c * s)
+    return rel, si, peak
+
+
+def _checked_block(source, header: Header, time, cols, t0, last, rel_last, rows, repair,
+                   peak):
+    """A block's relative time and SI columns after every check, one at a time;
+    raises the error naming the first bad row. Updates ``peak`` in place."""
+    path = source.path
+    if time.dtype.kind == "f" and not np.isfinite(time).all():
+        row = rows + int(np.flatnonzero(~np.isfinite(time))[0])
+        raise InputError(f"{path}, {source.locate(row)}, column 'time': not a finite "
+                         "number; fix or remove the row")
+    for name, col in zip(header.names, cols):
+        finite = np.isfinite(col)
+        if not finite.all():
+            row = rows + int(np.flatnonzero(~finite)[0])
+            raise InputError(f"{path}, {source.locate(row)}, column {name!r}: "
+                             f"{col[row - rows]} is not a finite number; remove the row "
+                             "(the gap will be detected) or fix the logger")
+    steps = np.diff(time) if last is None else np.diff(np.concatenate([[last], time]))
+    bad = np.flatnonzero(steps <= 0)
+    if bad.size and repair is None:
+        first = int(bad[0])
+        _order_error(source, rows + first + (1 if last is None else 0), steps[first], bad.size)
+    # Relative time before scaling keeps integer nanoseconds exact.
+    with np.errstate(over="ignore", invalid="ignore"):
+        rel = (time - t0).astype(np.float64) * header.time_scale
+    _check_seconds(source, rel, rel_last, rows, repair)
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        si = [c * s + o if o else c * s
+              for c, s, o in zip(cols, header.scale, header.offset)]
+    for i, (name, col, unit) in enumerate(zip(header.names, si, header.source_units)):
+        peak[i] = max(peak[i], _check_si(source, name, unit, col, rows))
+    return rel, si
 
 
 def exact_time(source, time: np.ndarray, rows: int) -> np.ndarray:

@@ -1,0 +1,123 @@
+"""The fast read: CSV segments parsed in one pyarrow call each, and block checks by
+reductions, give what element-wise reading and checking give."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from noisecal.errors import InputError
+from noisecal.ingest import csv_reader, read_recording
+from noisecal.ingest.header import parse_header
+from noisecal.ingest.validate import MIN_STEP_S, SI_LIMIT, _quick_block
+
+
+def body(tmp_path, n=5000, newline="\n"):
+    rng = np.random.default_rng(11)
+    data = np.column_stack([np.arange(n) * 0.01, rng.standard_normal((n, 2)) * 1e3])
+    lines = [",".join(f"{v:.9g}" for v in row) for row in data]
+    lines.insert(2100, "")
+    text = newline.join(["# log", "time [s],a [rad/s],b [deg/s]"] + lines) + newline
+    path = tmp_path / "r.csv"
+    path.write_bytes(text.encode())
+    return path, np.loadtxt(path, delimiter=",", skiprows=2)
+
+
+@pytest.mark.parametrize("newline", ["\n", "\r\n", "\r"])
+@pytest.mark.parametrize("segment", [777, 4096, 1 << 25])
+def test_segments_cut_anywhere_read_like_loadtxt(tmp_path, monkeypatch, newline, segment):
+    """Segments cut at any line end (LF, CRLF, lone CR), blocks of 4 KiB inside them:
+    numbers as numpy.loadtxt reads them (reference library), deg/s scaled by pi/180
+    (the unit's definition, common practice, no source)."""
+    monkeypatch.setattr(csv_reader, "SEGMENT_BYTES", segment)
+    monkeypatch.setattr(csv_reader, "ARROW_BLOCK_BYTES", 4096)
+    path, ref = body(tmp_path, newline=newline)
+    rec = read_recording(path, use_cache=False)
+    np.testing.assert_array_equal(rec.time, ref[:, 0] - ref[0, 0])
+    np.testing.assert_array_equal(rec.channel("a"), ref[:, 1])
+    np.testing.assert_allclose(rec.channel("b"), np.deg2rad(ref[:, 2]), rtol=1e-15)
+
+
+def test_segmented_read_equals_the_pandas_path(tmp_path, monkeypatch):
+    """The segmented pyarrow read and the pandas byte-range read give identical
+    arrays, cached and not."""
+    path, _ = body(tmp_path)
+    monkeypatch.setattr(csv_reader, "SEGMENT_BYTES", 1000)
+    fast = read_recording(path, use_cache=False)
+    cached = read_recording(path)
+    monkeypatch.setattr(csv_reader.CsvSource, "blocks", csv_reader.CsvSource._pandas_blocks)
+    slow = read_recording(path, use_cache=False)
+    for rec in (fast, cached):
+        np.testing.assert_array_equal(rec.time, slow.time)
+        np.testing.assert_array_equal(rec.samples, slow.samples)
+
+
+def test_bad_cell_in_a_later_segment_is_named_by_its_line(tmp_path, monkeypatch):
+    monkeypatch.setattr(csv_reader, "SEGMENT_BYTES", 1000)
+    path, _ = body(tmp_path)
+    lines = path.read_text().splitlines()
+    lines[4000] = "39.97,NA,1"
+    path.write_text("\n".join(lines) + "\n")
+    with pytest.raises(InputError, match="line 4001, column 'a'"):
+        read_recording(path, use_cache=False)
+
+
+HEADER = ["time [s]", "g1 [rad/s]", "g2 [deg/s]", "a [g]", "temp [degC]"]
+
+
+def reference(time, cols, header, t0, last, rel_last):
+    """The checks element by element in plain numpy: None where any fails."""
+    steps = np.diff(np.concatenate([[last], time]) if last is not None else time)
+    if not (np.isfinite(time).all() and all(np.isfinite(c).all() for c in cols)
+            and (steps > 0).all()):
+        return None
+    rel = (time - t0) * header.time_scale
+    rsteps = np.diff(np.concatenate([[rel_last], rel]) if rel_last is not None else rel)
+    if not (np.isfinite(rel).all() and (rsteps >= MIN_STEP_S).all()):
+        return None
+    si = [c * s + o if o else c * s for c, s, o in zip(cols, header.scale, header.offset)]
+    if not all((np.abs(c) <= SI_LIMIT).all() for c in si):
+        return None
+    return rel, si, np.array([np.max(np.abs(c)) for c in si])
+
+
+@pytest.mark.parametrize("case", ["clean", "nan", "inf", "repeat", "backwards", "boundary",
+                                  "overflow", "tiny step", "clean after"])
+def test_quick_block_checks_agree_with_element_wise_checks(case):
+    """Block checks by reductions (max, min, the smallest step) accept exactly the
+    blocks element-wise checks accept, and give the same SI values bit for bit,
+    for scaled (deg/s, g) and affine (degC) units (common practice, no source)."""
+    header = parse_header(HEADER, "r.csv")
+    rng = np.random.default_rng(5)
+    n = 4000
+    time = 1000.0 + np.arange(n) * 0.0025
+    cols = [rng.standard_normal(n) * 10 ** k for k in (-3, 1, 0, 1)]
+    last, rel_last = None, None
+    if case == "nan":
+        cols[2][1234] = np.nan
+    elif case == "inf":
+        cols[0][7] = -np.inf
+    elif case == "repeat":
+        time[3000] = time[2999]
+    elif case == "backwards":
+        time[10] -= 0.01
+    elif case == "boundary":
+        last = time[0]
+    elif case == "overflow":
+        cols[3][99] = 1e308  # degC to K stays finite; deg/s below overflows SI_LIMIT
+        cols[1][5] = 1e102
+    elif case == "tiny step":
+        time[2000:] += 1e-13 - 0.0025  # a step below MIN_STEP_S
+    elif case == "clean after":
+        last, rel_last = time[0] - 0.0025, -0.0025
+    t0 = time[0] if last is None else time[0] - 0.0025
+    got = _quick_block(time, cols, header, t0, last, rel_last)
+    want = reference(time, cols, header, t0, last, rel_last)
+    assert (got is None) == (want is None)
+    if want is not None:
+        np.testing.assert_array_equal(got[0], want[0])
+        for a, b in zip(got[1], want[1]):
+            np.testing.assert_array_equal(a, b)
+        np.testing.assert_array_equal(got[2], want[2])
+    if case in ("clean", "clean after"):
+        assert want is not None
