@@ -263,7 +263,6 @@ def _read_cached(path, source, header, state, root, hasher, tick) -> Recording:
         fingerprint = _probe(path)
         _unchanged(path, state)
         release_free_memory()
-        ours = False
         if cache.load(root, digest) is not None:
             # Same bytes under another name or a new mtime: keep the entry there is.
             sink.close()
@@ -272,7 +271,7 @@ def _read_cached(path, source, header, state, root, hasher, tick) -> Recording:
             meta = _meta(source, header, digest, state[1], start, time, cols, ())
             meta["probe"] = fingerprint
             del time, cols
-            ours = cache.commit(work, root, digest, meta, sink.checksums)
+            cache.commit(work, root, digest, meta, sink.checksums)
         cache.remember(root, state, digest)
     except OSError as exc:
         if sink is not None:
@@ -287,7 +286,7 @@ def _read_cached(path, source, header, state, root, hasher, tick) -> Recording:
             sink.close()
         work.release()
         raise
-    hit = cache.load(root, digest, verify=not ours)
+    hit = cache.load(root, digest)
     if hit is None:
         raise OutputError(f"{cache.entry_dir(root, digest)}: the cache entry just "
                           "written cannot be read; check the disk or pass --no-cache")

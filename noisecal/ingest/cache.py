@@ -9,11 +9,22 @@ next run (:func:`clean`).
 
 What is checked, and when:
 
-* ``meta.json`` holds the SHA-256 of each column file's data bytes and a
-  SHA-256 of its own content; on every load both are checked, the entry's
-  recorded input hash must equal the one asked for, and the shapes and
-  dtypes must be those recorded. An entry that fails any check is removed,
-  rebuilt from the input, and the run says so in one note on stderr.
+* ``meta.json`` holds, for each column file, the CRC-32 of its data bytes, its
+  stat fingerprint when written (size, mtime and ctime in ns, inode) and
+  the CRC-32 of ``SAMPLE_WINDOWS`` windows spread over it (the first and
+  last included), and a SHA-256 of its own content. On every load: the
+  SHA-256 of ``meta.json``, the entry's recorded input hash (it must be the
+  one asked for), each column's shape and dtype, its stat fingerprint and
+  its sampled windows. A column whose fingerprint changed (any write to the
+  file, a truncation, a copy or restore, even with the mtime put back: the
+  ctime then changes) is checked in full against its CRC-32, and when it
+  passes the new fingerprint is recorded, so the next load is cheap again.
+  An entry that fails any check is removed, rebuilt from the input, and the
+  run says so in one note on stderr.
+* Not checked on a load with unchanged fingerprints: bytes outside the sampled
+  windows that changed without any write through the file system (a failing
+  disk, memory errors) - a full check reads every byte, and serving a warm
+  run at once is the cache's purpose.
 * To avoid hashing a multi-GB file on every run, an index maps (real path,
   size, mtime, ctime, inode, device) to the content hash; any change to the
   file changes its ctime and forces a new hash. Each index record carries a
@@ -40,6 +51,7 @@ import json
 import os
 import shutil
 import tempfile
+import zlib
 from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
@@ -48,13 +60,16 @@ import numpy as np
 from ..paths import LockedFolder, clean_stale, note
 from .sink import NPY_HEADER
 
-LAYOUT = 2
+LAYOUT = 3
 BUILDING = ".building-"
 PROBE_BYTES = 1 << 16
 MAP_LIMIT = 256
 """Columns up to which an entry is memory-mapped; a wider entry is read into memory,
 since each memory map holds a file descriptor (the usual limit is 1024)."""
 INDEX_SIZE = 1000
+SAMPLE_WINDOWS = 16
+"""Windows of ``SAMPLE_BYTES`` per column file checked on every load."""
+SAMPLE_BYTES = 4096
 
 
 def file_digest(path: Path, progress=None, stop=None) -> str | None:
@@ -175,17 +190,43 @@ def _canonical(obj) -> bytes:
     return json.dumps(obj, sort_keys=True, separators=(",", ":")).encode()
 
 
-def _data_sha256(array: np.ndarray) -> str:
-    digest = hashlib.sha256()
+def _data_crc(array: np.ndarray) -> str:
+    """CRC-32 (8 hex digits) of an array's data bytes, in 32 MiB calls (each releases the GIL)."""
+    crc = 0
     flat = array.reshape(-1)
-    step = 1 << 22  # 32 MiB of float64 a call: hashlib releases the GIL on each
+    step = 1 << 22
     for a in range(0, max(flat.shape[0], 1), step):
-        digest.update(np.ascontiguousarray(flat[a:a + step]).data)
-    return digest.hexdigest()
+        crc = zlib.crc32(np.ascontiguousarray(flat[a:a + step]).data, crc)
+    return f"{crc:08x}"
+
+
+def stat_fingerprint(path: Path) -> list:
+    """(size, mtime ns, ctime ns, inode) of a file: any write through the file
+    system changes the ctime, which cannot be set back."""
+    st = os.stat(path)
+    return [st.st_size, st.st_mtime_ns, st.st_ctime_ns, st.st_ino]
+
+
+def sampled_crc(path: Path) -> str:
+    """CRC-32 of ``SAMPLE_WINDOWS`` windows of ``SAMPLE_BYTES`` spread evenly over a
+    file, the first and the last included (8 hex digits)."""
+    with open(path, "rb", buffering=0) as fh:
+        size = os.fstat(fh.fileno()).st_size
+        last = max(size - SAMPLE_BYTES, 0)
+        crc = zlib.crc32(str(size).encode())
+        for k in range(SAMPLE_WINDOWS):
+            fh.seek(last * k // (SAMPLE_WINDOWS - 1))
+            crc = zlib.crc32(fh.read(SAMPLE_BYTES), crc)
+    return f"{crc:08x}"
 
 
 class Damaged(Exception):
     """An entry failed a check (internal; :func:`load` turns it into a rebuild)."""
+
+
+def _stored_checksum(stored: dict) -> str:
+    return hashlib.sha256(_canonical({k: v for k, v in stored.items()
+                                      if k != "meta_sha256"})).hexdigest()
 
 
 def _read_entry(folder: Path, digest: str, verify: bool):
@@ -195,19 +236,22 @@ def _read_entry(folder: Path, digest: str, verify: bool):
         raise Damaged(f"meta.json unreadable ({type(exc).__name__})") from None
     if not isinstance(stored, dict) or not isinstance(stored.get("meta"), dict):
         raise Damaged("meta.json has another layout")
-    meta, files = stored["meta"], stored.get("files")
-    if stored.get("meta_sha256") != hashlib.sha256(_canonical(
-            {"meta": meta, "files": files})).hexdigest():
+    if stored.get("meta_sha256") != _stored_checksum(stored):
         raise Damaged("meta.json does not match its checksum")
+    meta, files = stored["meta"], stored.get("files")
+    stats, samples = stored.get("stat"), stored.get("sampled")
     if meta.get("sha256") != digest or meta.get("layout") != LAYOUT:
         raise Damaged("the entry records another input hash")
     names = ["time.npy"] + [f"c{i}.npy" for i in range(len(meta["names"]))]
-    if not isinstance(files, dict) or sorted(files) != sorted(names):
-        raise Damaged("meta.json lists other column files")
-    arrays = []
+    for table in (files, stats, samples):
+        if not isinstance(table, dict) or sorted(table) != sorted(names):
+            raise Damaged("meta.json lists other column files")
+    arrays, changed = [], []
     for name in names:
         path = folder / name
         try:
+            if stat_fingerprint(path) != stats[name]:
+                changed.append(name)
             if len(names) > MAP_LIMIT:
                 with open(path, "rb") as fh:
                     if np.lib.format.read_magic(fh) != (1, 0):
@@ -220,21 +264,40 @@ def _read_entry(folder: Path, digest: str, verify: bool):
                     raise ValueError("truncated")
             else:
                 array = np.load(path, mmap_mode="r")
+            sampled = sampled_crc(path)
         except (OSError, ValueError, EOFError) as exc:
             raise Damaged(f"{name} unreadable ({type(exc).__name__})") from None
         if array.dtype != np.dtype("<f8") or array.shape != (meta["n"],):
             raise Damaged(f"{name} has shape {array.shape} of {array.dtype}")
+        if sampled != samples[name]:
+            raise Damaged(f"{name} does not match its checksum")
         arrays.append(array)
-    if verify:
+    full = names if verify else changed
+    if full:
         with ThreadPoolExecutor(2) as pool:
-            sums = list(pool.map(_data_sha256, arrays))
-        for name, got in zip(names, sums):
+            sums = list(pool.map(_data_crc, [arrays[names.index(n)] for n in full]))
+        for name, got in zip(full, sums):
             if got != files[name]:
                 raise Damaged(f"{name} does not match its checksum")
+    if changed:
+        # Checked in full and sound (copied, restored, touched): record the files as
+        # they are now, so the next load needs no full check.
+        for name in changed:
+            stats[name] = stat_fingerprint(folder / name)
+        _write_stored(folder, stored)
     return meta, arrays[0], arrays[1:]
 
 
-def load(root: Path, digest: str, verify: bool = True, expect_probe: str | None = None):
+def _write_stored(folder: Path, stored: dict) -> None:
+    """Write ``meta.json`` (its checksum recomputed) atomically."""
+    stored["meta_sha256"] = _stored_checksum(stored)
+    try:
+        _write_json(folder / "meta.json", stored)
+    except OSError:
+        pass  # a read-only cache: the next load checks in full again
+
+
+def load(root: Path, digest: str, verify: bool = False, expect_probe: str | None = None):
     """(meta, time, columns) from a complete, intact entry, or None.
 
     Parameters
@@ -244,7 +307,8 @@ def load(root: Path, digest: str, verify: bool = True, expect_probe: str | None 
     digest : str
         SHA-256 of the input.
     verify : bool
-        Check every column's checksum (False only for an entry this run just wrote).
+        Check every column in full against its CRC-32, whatever its stat
+        fingerprint says (by default only columns whose fingerprint changed).
     expect_probe : str, optional
         The input's :func:`probe`; an entry recording another is not served
         (the index pointed at the wrong entry) but left in place.
@@ -280,8 +344,11 @@ def commit(work: LockedFolder, root: Path, digest: str, meta: dict, files: dict)
     bool
         False if another run put the entry there first (theirs is kept).
     """
-    stored = {"meta": meta, "files": files}
-    stored["meta_sha256"] = hashlib.sha256(_canonical(stored)).hexdigest()
+    names = sorted(files)
+    stored = {"meta": meta, "files": files,
+              "stat": {n: stat_fingerprint(work.path / n) for n in names},
+              "sampled": {n: sampled_crc(work.path / n) for n in names}}
+    stored["meta_sha256"] = _stored_checksum(stored)
     with open(work.path / "meta.json", "w") as fh:
         json.dump(stored, fh)
     target = entry_dir(root, digest)
