@@ -30,7 +30,6 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
 
 from ..analysis.allan import deviation
 from ..types import AllanCurve, Estimate
@@ -74,6 +73,8 @@ def weighted_nnls_reference(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
                             passes: int = REWEIGHT_PASSES) -> np.ndarray:
     """:func:`weighted_nnls` with scipy's NNLS (the specification the compiled
     path is tested against). Parameters and result as there."""
+    from scipy.optimize import nnls
+
     scale = np.sqrt(nu / 2.0)
     ref = avar
     c = np.zeros(A.shape[1])
@@ -81,7 +82,7 @@ def weighted_nnls_reference(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
     col[col == 0] = 1.0
     for _ in range(passes + 1):
         w = scale / ref
-        sol, _ = optimize.nnls(A * w[:, None] / col, avar * w)
+        sol, _ = nnls(A * w[:, None] / col, avar * w)
         c = sol / col
         model = A @ c
         ref = np.where(model > 0, model, avar)
@@ -359,6 +360,14 @@ def _instability_for_walk(cols: tuple) -> tuple | None:
     return None
 
 
+def chi2_ppf(q, nu):
+    """Chi-square quantile (``scipy.stats.chi2.ppf``) through scipy.special, which
+    loads in a fraction of scipy.stats' time."""
+    from scipy import special
+
+    return 2.0 * special.gammaincinv(np.asarray(nu, dtype=np.float64) / 2.0, q)
+
+
 HOLD_LEVEL = 0.99
 """Per-point level at which the model must hold at the first two fitted points (two
 points at 95 % would reject clean data one time in ten)."""
@@ -368,8 +377,8 @@ def _holds(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, s: int, c6: np.ndarr
     """Whether the model lies inside the ``HOLD_LEVEL`` chi-square intervals of points s, s+1."""
     j = slice(s, s + 2)
     a = 1.0 - HOLD_LEVEL
-    lo = avar[j] * nu[j] / stats.chi2.ppf(1.0 - a / 2.0, nu[j])
-    hi = avar[j] * nu[j] / stats.chi2.ppf(a / 2.0, nu[j])
+    lo = avar[j] * nu[j] / chi2_ppf(1.0 - a / 2.0, nu[j])
+    hi = avar[j] * nu[j] / chi2_ppf(a / 2.0, nu[j])
     model = A[j] @ c6
     return bool(np.all((model >= lo) & (model <= hi)))
 
@@ -691,14 +700,14 @@ def harrell_davis(values: np.ndarray, probs) -> np.ndarray:
     plain quantiles, 96 % with 600 replicates); the Harrell–Davis estimate uses
     every replicate. F. E. Harrell, C. E. Davis, Biometrika 69(3), 1982.
     """
-    from scipy import stats
+    from scipy import special
 
     x = np.sort(np.asarray(values, dtype=np.float64))
     n = x.shape[0]
     edges = np.arange(n + 1) / n
     out = []
     for p in probs:
-        cdf = stats.beta.cdf(edges, p * (n + 1), (1.0 - p) * (n + 1))
+        cdf = special.betainc(p * (n + 1), (1.0 - p) * (n + 1), edges)
         out.append(float(np.dot(np.diff(cdf), x)))
     return np.array(out)
 
@@ -748,7 +757,7 @@ def term_bound(curve: AllanCurve, column: int, level: float = 0.95,
     used = np.ones(curve.taus.shape[0], bool) if used is None else used
     taus, dev, nu = curve.taus[used], curve.dev[used], curve.edf[used]
     a = (1.0 - level) / taus.shape[0]
-    avar_hi = dev ** 2 * nu / stats.chi2.ppf(a, nu)
+    avar_hi = dev ** 2 * nu / chi2_ppf(a, nu)
     per = avar_hi / basis(taus)[:, column]
     j = int(np.argmin(per))
     return float(per[j]), float(taus[j])
