@@ -4,6 +4,11 @@ Sensor headers use a few conventions that differ from pint's defaults:
 ``g`` is standard gravity (9.80665 m/s², 3rd CGPM 1901), not the gram, and
 ``mg``/``ug`` are milli-/micro-g; ``dps`` is degrees per second.
 
+pint itself (a few tenths of a second to import, as much again to build its
+registry) is loaded only for a unit outside the tables of common units
+(:data:`COMMON`, :data:`_ANALYSED_SI`, :data:`_DERIVED`, :data:`_CUSTOMARY_SCALE`);
+a recording in the usual units never loads it.
+
 Spellings the trade reads two ways are refused with the spelling to use
 (:data:`AMBIGUOUS`): ``G``/``Gs``/``mG``/``kG`` (gauss, giga-, or a capitalised
 g; pint's gauss is the CGS-Gaussian one, not 10⁻⁴ T), ``dB`` and its kin
@@ -17,12 +22,15 @@ from __future__ import annotations
 
 import re
 from functools import lru_cache
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pint
 
 from .errors import UnitError
 from .paths import cache_root
+
+if TYPE_CHECKING:
+    import pint
 
 STANDARD_GRAVITY = 9.80665  # m/s², 3rd CGPM (1901)
 
@@ -50,6 +58,8 @@ tests check every entry against pint."""
 @lru_cache(maxsize=1)
 def registry() -> pint.UnitRegistry:
     """The project's unit registry (pint defaults plus sensor conventions)."""
+    import pint  # here, not at module level: most runs never need it
+
     try:
         # pint's own cache of parsed definitions halves its start-up time.
         ureg = pint.UnitRegistry(cache_folder=str(cache_root() / "pint"))
@@ -230,6 +240,24 @@ def time_scale(unit: str, where: str) -> float:
     return scale
 
 
+_DERIVED = {
+    # SI unit: (quantization, rate_ramp, white_psd, bias_rw_psd, input_variance, variance)
+    "1": ("s", "1/s", "1/Hz", "Hz", "s**2", "1"),
+    "m": ("m*s", "m/s", "m**2/Hz", "m**2*Hz", "m**2*s**2", "m**2"),
+    "m/s": ("m", "m/s**2", "m**2/s**2/Hz", "m**2/s**2*Hz", "m**2", "m**2/s**2"),
+    "m/s**2": ("m/s", "m/s**3", "m**2/s**4/Hz", "m**2/s**4*Hz", "m**2/s**2", "m**2/s**4"),
+    "rad": ("rad*s", "rad/s", "rad**2/Hz", "rad**2*Hz", "rad**2*s**2", "rad**2"),
+    "rad/s": ("rad", "rad/s**2", "rad**2/s**2/Hz", "rad**2/s**2*Hz", "rad**2", "rad**2/s**2"),
+    "s": ("s**2", "1", "s**2/Hz", "s**2*Hz", "s**4", "s**2"),
+}
+"""Units :func:`derived_unit` gives through pint for the SI units of :data:`COMMON`,
+so that a run in those units never loads pint. The tests check every entry
+against the pint path."""
+
+_DERIVED_KINDS = ("quantization", "rate_ramp", "white_psd", "bias_rw_psd", "input_variance",
+                  "variance")
+
+
 def derived_unit(si_unit: str, kind: str) -> str:
     """Unit of a noise coefficient for a channel of SI unit ``si_unit``.
 
@@ -243,6 +271,20 @@ def derived_unit(si_unit: str, kind: str) -> str:
         ``rate_ramp`` (u/s), ``white_psd`` (u²/Hz), ``bias_rw_psd`` (u²·Hz),
         ``variance`` (u²), ``input_variance`` ((u·s)²), ``time`` (s).
     """
+    known = _DERIVED.get(si_unit)
+    if known is not None and kind in _DERIVED_KINDS:
+        return known[_DERIVED_KINDS.index(kind)]
+    if known is not None or kind == "time":
+        u = si_unit if si_unit != "1" else ""
+        return {"white_noise": f"{u}/Hz^0.5" if u else "1/Hz^0.5",
+                "bias_instability": u or "1",
+                "bias_random_walk": f"{u}*Hz^0.5" if u else "Hz^0.5",
+                "time": "s"}[kind]
+    return _derived_by_pint(si_unit, kind)
+
+
+def _derived_by_pint(si_unit: str, kind: str) -> str:
+    """:func:`derived_unit` through pint's registry (any unit pint parses)."""
     u = si_unit if si_unit != "1" else ""
     ureg = registry()
     base = ureg.parse_units(_to_pint_text(si_unit))
@@ -286,9 +328,28 @@ CUSTOMARY = {
 """Units the inertial trade quotes datasheets in, for display beside SI."""
 
 
+_CUSTOMARY_SCALE = {
+    ("rad/s", "white_noise"): 3437.7467707849396,       # (180/π)·60
+    ("rad/s", "bias_instability"): 206264.80624709636,  # (180/π)·3600
+    ("rad/s", "bias_random_walk"): 12375888.374825781,  # (180/π)·3600^1.5
+    ("rad/s", "quantization"): 57.29577951308232,       # 180/π
+    ("rad/s", "rate_ramp"): 742553302.4895469,          # (180/π)·3600²
+    ("m/s**2", "white_noise"): 60.0,
+    ("m/s**2", "bias_instability"): 101.97162129779284,  # 1000/9.80665
+    ("m/s**2", "bias_random_walk"): 216000.0,
+    ("m/s**2", "quantization"): 1.0,
+    ("m/s**2", "rate_ramp"): 367097.8366720542,          # 1000·3600/9.80665
+}
+"""Customary units per SI unit of each :data:`CUSTOMARY` entry, as pint converts
+them (checked against pint by the tests): the summary needs no unit registry."""
+
+
 def customary(value: float, si_unit: str, term: str) -> str | None:
     """The value in the trade's customary unit, e.g. ``"0.15 deg/h^0.5"``, or None."""
     target = CUSTOMARY.get((si_unit, term))
     if target is None or value is None:
         return None
-    return f"{convert(value, derived_unit(si_unit, term), target):.4g} {target}"
+    scale = _CUSTOMARY_SCALE.get((si_unit, term))
+    if scale is None:
+        return f"{convert(value, derived_unit(si_unit, term), target):.4g} {target}"
+    return f"{value * scale:.4g} {target}"

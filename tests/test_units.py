@@ -142,3 +142,58 @@ def test_truncated_unit_cache_is_not_fatal(tmp_path):
                            text=True)
     assert again.returncode == 0, again.stderr
     assert float(again.stdout) == float(first.stdout) == np.pi / 180
+
+
+@pytest.mark.parametrize("si", sorted(__import__("noisecal.units", fromlist=["_DERIVED"])._DERIVED))
+def test_derived_unit_table_agrees_with_pint(si):
+    """Reference library: every entry of the table of derived units (which spares a
+    run in common units from loading pint) is the text pint's registry gives for the
+    same product (u·s, u/s, u²/Hz, u²·Hz, (u·s)², u²)."""
+    from noisecal import units
+
+    kinds = units._DERIVED_KINDS + ("white_noise", "bias_instability", "bias_random_walk",
+                                    "time")
+    for kind in kinds:
+        assert units.derived_unit(si, kind) == units._derived_by_pint(si, kind), (si, kind)
+
+
+@pytest.mark.parametrize("key", sorted(__import__("noisecal.units",
+                                                   fromlist=["CUSTOMARY"]).CUSTOMARY))
+def test_customary_scale_agrees_with_pint(key):
+    """Reference library: the fixed factor to each customary unit equals pint's
+    conversion of one SI unit of the term (and a table entry for every customary
+    unit); arithmetic from the definitions for deg/h^0.5 in test_angle_random_walk_constants."""
+    from noisecal import units
+
+    si, term = key
+    ureg = pint.UnitRegistry()
+    ureg.define("sensor_gravity = 9.80665 m/s^2")
+    frm = units._to_pint_text(units.derived_unit(si, term))
+    ref = ureg.Quantity(1.0, frm).to(units._to_pint_text(units.CUSTOMARY[key])).magnitude
+    assert units._CUSTOMARY_SCALE[key] == pytest.approx(ref, rel=1e-15)
+
+
+def test_common_units_never_load_pint():
+    """A recording in common units (deg/s, g, s) reads, names its noise units and
+    prints customary values without importing pint (about half a second a run);
+    common practice, no source."""
+    import subprocess
+    import sys
+
+    code = ("import sys, numpy as np\n"
+            "from noisecal import units\n"
+            "for u in ('deg/s', 'g', 'mg', 's', 'ns', 'rad/s', 'm'):\n"
+            "    units.to_si(np.ones(2), u, 't')\n"
+            "units.time_scale('ns', 't')\n"
+            "for si in units._DERIVED:\n"
+            "    assert units.analysed(si)\n"
+            "    for k in ('quantization', 'white_noise', 'bias_instability',\n"
+            "              'bias_random_walk', 'rate_ramp', 'white_psd', 'bias_rw_psd',\n"
+            "              'input_variance', 'variance', 'time'):\n"
+            "        units.derived_unit(si, k)\n"
+            "for si, term in units.CUSTOMARY:\n"
+            "    units.customary(1e-5, si, term)\n"
+            "print('pint' in sys.modules)\n")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == "False"
