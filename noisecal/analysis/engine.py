@@ -626,7 +626,8 @@ WELCH_CHUNK = 128
 """Segments transformed at once by :func:`welch_linear` (4 MiB of samples at 4096)."""
 
 
-def welch_linear(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np.ndarray]:
+def welch_linear(x: np.ndarray, fs: float, nperseg: int,
+                 centre: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
     """``scipy.signal.welch(x, fs, nperseg=nperseg, detrend="linear")``, batched.
 
     Hann window (periodic), half-overlapping segments, a least-squares line
@@ -646,6 +647,9 @@ def welch_linear(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np
         Sample rate, Hz.
     nperseg : int
         Segment length.
+    centre : float
+        Subtracted from every sample first (as ``x - centre`` would be, without
+        that copy), u.
 
     Returns
     -------
@@ -666,7 +670,7 @@ def welch_linear(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np
     block = np.empty((min(WELCH_CHUNK, count), nperseg))
     for a in range(0, count, WELCH_CHUNK):
         rows = min(WELCH_CHUNK, count - a)
-        _detrended(x, a * step, step, t, tt, win, block[:rows])
+        _detrended(x, float(centre), a * step, step, t, tt, win, block[:rows])
         _add_power(fft.rfft(block[:rows], axis=1), acc)
     psd = acc / (count * fs * float(win @ win))
     psd[1:-1 if nperseg % 2 == 0 else None] *= 2.0
@@ -674,7 +678,7 @@ def welch_linear(x: np.ndarray, fs: float, nperseg: int) -> tuple[np.ndarray, np
 
 
 @njit(cache=True, nogil=True)
-def _detrended(x, start, step, t, tt, win, out):
+def _detrended(x, centre, start, step, t, tt, win, out):
     # Segments from ``start``, each less its least-squares line, times the window:
     # one pass, no BLAS (its threads idle-spin, doubling the CPU time).
     n = out.shape[1]
@@ -683,12 +687,13 @@ def _detrended(x, start, step, t, tt, win, out):
         s = 0.0
         st = 0.0
         for i in range(n):
-            s += x[a + i]
-            st += x[a + i] * t[i]
+            v = x[a + i] - centre
+            s += v
+            st += v * t[i]
         mean = s / n
         slope = st / tt
         for i in range(n):
-            out[r, i] = (x[a + i] - (mean + slope * t[i])) * win[i]
+            out[r, i] = ((x[a + i] - centre) - (mean + slope * t[i])) * win[i]
 
 
 @njit(cache=True, nogil=True)

@@ -52,7 +52,7 @@ def spectrum(y: np.ndarray, period: float, nperseg: int = 4096) -> tuple[np.ndar
     y = np.asarray(y[:MAX_SAMPLES], dtype=np.float64)
     nseg = int(min(nperseg, max(16, y.shape[0] // 8)))
     # scipy.signal.welch's numbers (tested there), segments detrended in batches.
-    return welch_linear(y - y.mean(), 1.0 / period, nseg)
+    return welch_linear(y, 1.0 / period, nseg, centre=y.mean())
 
 
 def _smooth(psd: np.ndarray, half: int) -> np.ndarray:
