@@ -546,11 +546,15 @@ def _noise_ids_chain(y, ms, dmax, min_blocks, max_blocks):
         ratio = ms[j] // at
         if ratio > 1:
             nxt = np.empty(sums.shape[0] // ratio)
-            for q in range(nxt.shape[0]):
-                s = 0.0
-                for i in range(q * ratio, (q + 1) * ratio):
-                    s += sums[i]
-                nxt[q] = s
+            if ratio == 2:  # the octave step, vectorised; same sum as the loop below
+                for q in range(nxt.shape[0]):
+                    nxt[q] = (0.0 + sums[2 * q]) + sums[2 * q + 1]
+            else:
+                for q in range(nxt.shape[0]):
+                    s = 0.0
+                    for i in range(q * ratio, (q + 1) * ratio):
+                        s += sums[i]
+                    nxt[q] = s
             sums = nxt
             at = ms[j]
         blocks = min(sums.shape[0], max_blocks)
