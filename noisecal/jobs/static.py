@@ -23,10 +23,8 @@ from ..export import yaml_block
 from ..export.atomic import STDOUT, Staged, output_paths
 from ..export.plot import allan_figure
 from ..fit.discrete import filter_block
-from ..fit.gauss_markov import fit_gauss_markov
 from ..fit.ieee952 import COLUMNS, PENALTY, basis6, fit_terms, term_estimates
 from ..fit.model_check import check_model, spikes
-from ..fit.turn_on import turn_on_bias
 from ..fit.simulate import TERM_NAMES
 from ..ingest import read_recording
 from ..types import AllanCurve, ChannelModel, FilterBlock, Recording
@@ -239,6 +237,10 @@ def _channel(rec: Recording, name: str, reps: int, seed: int, bar):
     (ChannelModel, AllanCurve, AllanCurve, PsdCheck)
         The model, the dense ADEV and Hadamard curves, the spectrum check.
     """
+    # Here, not at module level: numba and scipy.special load once the data are read.
+    from ..fit.gauss_markov import fit_gauss_markov
+    from ..fit.turn_on import turn_on_bias
+
     y = rec.channel(name)
     unit = rec.unit_of(name)
     segments = rec.segments
