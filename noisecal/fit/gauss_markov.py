@@ -23,7 +23,6 @@ from numba import njit
 from ..types import AllanCurve, Estimate
 from ..units import derived_unit
 from .ieee952 import pivot_interval, replicate_curves, weighted_nnls
-from .select_kernel import nnls
 from .simulate import RateModel, basis, gm_avar
 
 GRID_POINTS = 32
@@ -46,13 +45,86 @@ def _fit_one(taus: np.ndarray, avar: np.ndarray, nu: np.ndarray, grid: np.ndarra
 
 
 @njit(cache=True, nogil=True)
+def _nnls3(G, h, x):
+    """Exact NNLS from the normal equations of at most three columns: the least
+    objective over the active sets whose unconstrained solution is positive (the NNLS
+    optimum is one of them). No allocation: called millions of times."""
+    p = G.shape[0]
+    best = 0.0
+    x[:] = 0.0
+    z0 = z1 = z2 = 0.0
+    for mask in range(1, 1 << p):
+        i0 = mask & 1
+        i1 = (mask >> 1) & 1
+        i2 = (mask >> 2) & 1 if p > 2 else 0
+        q = i0 + i1 + i2
+        # The chosen columns' indices, in order.
+        a = 0 if i0 else (1 if i1 else 2)
+        b = (1 if (i0 and i1) else 2) if q > 1 else -1
+        c = 2 if q == 3 else -1
+        if q == 1:
+            if G[a, a] <= 0.0:
+                continue
+            za, zb, zc = h[a] / G[a, a], 0.0, 0.0
+        elif q == 2:
+            det = G[a, a] * G[b, b] - G[a, b] * G[b, a]
+            if det <= 0.0:
+                continue
+            za = (G[b, b] * h[a] - G[a, b] * h[b]) / det
+            zb = (G[a, a] * h[b] - G[b, a] * h[a]) / det
+            zc = 0.0
+        else:
+            c00, c01, c02 = G[0, 0], G[0, 1], G[0, 2]
+            c11, c12, c22 = G[1, 1], G[1, 2], G[2, 2]
+            m00 = c11 * c22 - c12 * c12
+            m01 = c02 * c12 - c01 * c22
+            m02 = c01 * c12 - c02 * c11
+            det = c00 * m00 + c01 * m01 + c02 * m02
+            if det <= 0.0:
+                continue
+            m11 = c00 * c22 - c02 * c02
+            m12 = c01 * c02 - c00 * c12
+            m22 = c00 * c11 - c01 * c01
+            za = (m00 * h[0] + m01 * h[1] + m02 * h[2]) / det
+            zb = (m01 * h[0] + m11 * h[1] + m12 * h[2]) / det
+            zc = (m02 * h[0] + m12 * h[1] + m22 * h[2]) / det
+        if za <= 0.0 or (q > 1 and zb <= 0.0) or (q > 2 and zc <= 0.0):
+            continue
+        z0 = z1 = z2 = 0.0
+        for idx, val in ((a, za), (b, zb), (c, zc)):
+            if idx == 0:
+                z0 = val
+            elif idx == 1:
+                z1 = val
+            elif idx == 2:
+                z2 = val
+        # Objective less ||b||²: x'Gx − 2h'x.
+        obj = (z0 * (G[0, 0] * z0 + 2.0 * G[0, 1] * z1 - 2.0 * h[0])
+               + z1 * (G[1, 1] * z1 - 2.0 * h[1]))
+        if p > 2:
+            obj += z2 * (G[2, 2] * z2 + 2.0 * G[0, 2] * z0 + 2.0 * G[1, 2] * z1 - 2.0 * h[2])
+        if obj < best:
+            best = obj
+            x[0] = z0
+            x[1] = z1
+            if p > 2:
+                x[2] = z2
+    return x
+
+
+@njit(cache=True, nogil=True)
 def _fit_many_kernel(base, gm_cols, sims, nu, out):
     k = base.shape[0]
     w0 = np.sqrt(nu / 2.0)
     A = np.empty((k, 3))
     A[:, :2] = base
     x = np.zeros(3)
+    c = np.zeros(3)
     col = np.empty(3)
+    G = np.empty((3, 3))
+    h = np.empty(3)
+    ref = np.empty(k)
+    wv = np.empty(k)
     for r in range(sims.shape[0]):
         avar = sims[r]
         best = np.inf
@@ -60,24 +132,37 @@ def _fit_many_kernel(base, gm_cols, sims, nu, out):
         for g in range(gm_cols.shape[0]):
             A[:, 2] = gm_cols[g, 1:]
             for j in range(3):
-                col[j] = np.max(np.abs(A[:, j]))
-                if col[j] == 0.0:
-                    col[j] = 1.0
-            ref = avar.copy()
-            c = np.zeros(3)
-            for _ in range(2):  # weighted_nnls with passes=1
-                w = w0 / ref
-                M = A * w[:, None] / col[None, :]
-                nnls(M, avar * w, x)
-                c = x / col
-                model = A @ c
+                mx = 0.0
                 for i in range(k):
-                    ref[i] = model[i] if model[i] > 0 else avar[i]
-            model = A @ c
+                    mx = max(mx, abs(A[i, j]))
+                col[j] = mx if mx != 0.0 else 1.0
+            for i in range(k):
+                ref[i] = avar[i]
+            for _ in range(2):  # weighted_nnls with passes=1
+                for i in range(k):
+                    wv[i] = w0[i] / ref[i]
+                for a in range(3):
+                    s = 0.0
+                    for i in range(k):
+                        s += A[i, a] * wv[i] * wv[i] * avar[i]
+                    h[a] = s / col[a]
+                    for b in range(a, 3):
+                        s = 0.0
+                        for i in range(k):
+                            s += A[i, a] * A[i, b] * wv[i] * wv[i]
+                        G[a, b] = s / (col[a] * col[b])
+                        G[b, a] = G[a, b]
+                _nnls3(G, h, x)
+                for j in range(3):
+                    c[j] = x[j] / col[j]
+                for i in range(k):
+                    mdl = A[i, 0] * c[0] + A[i, 1] * c[1] + A[i, 2] * c[2]
+                    ref[i] = mdl if mdl > 0 else avar[i]
             cost = 0.0
             for i in range(k):
-                rr = model[i] if model[i] > 0 else avar[i]
-                e = w0[i] * (avar[i] - model[i]) / rr
+                mdl = A[i, 0] * c[0] + A[i, 1] * c[1] + A[i, 2] * c[2]
+                rr = mdl if mdl > 0 else avar[i]
+                e = w0[i] * (avar[i] - mdl) / rr
                 cost += e * e
             if cost < best:
                 best = cost
@@ -104,8 +189,9 @@ def _fit_many(taus: np.ndarray, sims: np.ndarray, nu: np.ndarray,
     -------
     ndarray, shape (reps, 2)
         Sigma (u) and correlation time (s) of each replicate. The same numbers
-        as the scipy path to rounding (Lawson–Hanson NNLS,
-        :func:`noisecal.fit.select_kernel.nnls`; tested against ``_fit_one``).
+        as the scipy path to rounding (NNLS of three columns solved exactly by its
+        active sets from the normal equations, :func:`_nnls3`; tested against
+        ``_fit_one``).
     """
     gm_cols = np.array([np.concatenate([[T], gm_avar(taus, 1.0, T)]) for T in grid])
     out = np.empty((sims.shape[0], 2))
