@@ -382,14 +382,15 @@ def allan_curves(y: np.ndarray, period: float, unit: str, specs: list[tuple],
     list of AllanCurve
         In the order of ``specs``.
     """
+    for j, (_, _, source) in enumerate(specs):
+        if source is not None and not 0 <= source < j:
+            raise ValueError(f"noise_from index {source} names no earlier curve")
     segments = segments or [(0, y.shape[0])]
     factors = [_factors(segments, kind, grid, per_decade) for kind, grid, _ in specs]
     devs = deviations(y, period, [(kind, m) for (kind, _, _), m in zip(specs, factors)],
                       segments)
     curves = []
     for (kind, _, source), m, (dev, n_terms) in zip(specs, factors, devs):
-        if source is not None and not 0 <= source < len(curves):
-            raise ValueError(f"noise_from index {source} names no earlier curve")
         curves.append(_curve(y, period, unit, kind, m, dev, n_terms, segments, level,
                              None if source is None else curves[source]))
     return curves
