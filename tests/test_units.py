@@ -144,7 +144,8 @@ def test_truncated_unit_cache_is_not_fatal(tmp_path):
     assert float(again.stdout) == float(first.stdout) == np.pi / 180
 
 
-@pytest.mark.parametrize("si", sorted(__import__("noisecal.units", fromlist=["_DERIVED"])._DERIVED))
+@pytest.mark.parametrize("si", sorted(__import__("noisecal.units",
+                                                  fromlist=["_DERIVED"])._DERIVED))
 def test_derived_unit_table_agrees_with_pint(si):
     """Reference library: every entry of the table of derived units (which spares a
     run in common units from loading pint) is the text pint's registry gives for the

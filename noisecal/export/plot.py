@@ -6,6 +6,10 @@ artists: one shared legend for the line styles, the term values as one text
 block under each panel, major grid lines only, and a fixed layout instead of
 ``tight_layout`` (which draws the figure once more to measure it). Measured on
 six channels against the first version in the same process: about 3x faster.
+Then: tick labels in plain text (mathtext's parser was a third of a fresh
+process's drawing time), only the ticks that show, and an RGB PNG at zlib level 3
+(:func:`_write_png`): the six-channel figure of a two-hour bench file took about
+0.8 s of CPU in a fresh process before, 0.5 s after (a loaded 2-core machine).
 """
 
 from __future__ import annotations
@@ -25,14 +29,38 @@ _COLOR = {"quantization": "#8c564b", "white_noise": "#1f77b4", "bias_instability
           "bias_random_walk": "#d62728", "rate_ramp": "#9467bd"}
 
 
-def _figure(width: float, height: float):
-    """A Figure on the Agg canvas, without pyplot (no global figure registry to clean)."""
+def _figure(width: float, height: float, dpi: float | None = None):
+    """A Figure on the Agg canvas, without pyplot (no global figure registry to clean).
+
+    ``dpi`` is the resolution :func:`_write_png` writes at (default matplotlib's).
+    """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=(width, height))
+    fig = Figure(figsize=(width, height), dpi=dpi)
     FigureCanvasAgg(fig)
     return fig
+
+
+def _write_png(fig, target) -> None:
+    """Draw ``fig`` at its own dpi and write it as an RGB PNG at low zlib effort.
+
+    The figure is opaque, so the alpha channel matplotlib's PNG writer keeps is a
+    quarter of the bytes for nothing; compression level 3 instead of 6 costs a few
+    per cent in size and took 40 % off the encoding (measured on the six-channel
+    Allan figure, 1.9 megapixels: 0.07 s → 0.04 s).
+
+    Parameters
+    ----------
+    fig : matplotlib.figure.Figure
+        A figure on the Agg canvas.
+    target : path or binary file object
+    """
+    from PIL import Image
+
+    fig.canvas.draw()
+    rgba = np.asarray(fig.canvas.buffer_rgba())
+    Image.fromarray(rgba, "RGBA").convert("RGB").save(target, format="png", compress_level=3)
 
 
 def _fmt(e) -> str:
@@ -41,17 +69,73 @@ def _fmt(e) -> str:
     return f"< {e.upper:.3g} {e.unit} (bound)"
 
 
-def _panel(ax, model: ChannelModel, dense: AllanCurve, hadamard: AllanCurve) -> None:
-    from matplotlib.ticker import LogLocator, NullFormatter, NullLocator
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 
-    ax.set_xscale("log")
-    ax.set_yscale("log")
-    # Each tick is three artists: eight minor ticks a decade over nine decades were
-    # most of the drawing time. Decades on the long tau axis, 2 and 5 on the short
-    # deviation axis.
+
+def _decade(value: float, _pos=None) -> str:
+    """A log-axis tick label in plain text: ``10⁻³``, or ``2×10⁻⁶`` off a decade.
+
+    matplotlib's default label is mathtext, whose parser took about a third of the
+    six-channel figure's drawing time in a fresh process.
+    """
+    if not value > 0:
+        return ""
+    exp = int(np.floor(np.log10(value) + 1e-9))
+    mantissa = value / 10.0 ** exp
+    power = "10" + str(exp).translate(_SUPERSCRIPT)
+    return power if abs(mantissa - 1.0) < 1e-9 else f"{mantissa:.3g}×{power}"
+
+
+LOG_AXES = {"xscale": "log", "yscale": "log"}
+"""``subplot_kw`` for Allan panels: axes made log-log at once (setting the scales
+afterwards builds and throws away a linear axis's ticks)."""
+
+
+def _log_ticks(lo: float, hi: float, subs: tuple, most: int = 0) -> np.ndarray:
+    """Positions ``m·10^k`` (``m`` in ``subs``) inside ``[lo, hi]``, ascending.
+
+    With ``most``, every other decade (or sparser) when more than ``most`` would
+    show, as matplotlib's own log locator does.
+    """
+    k = np.arange(np.floor(np.log10(lo)), np.ceil(np.log10(hi)) + 1.0)
+    v = (np.asarray(subs, dtype=float)[:, None] * 10.0 ** k).ravel()
+    v = np.sort(v[(v >= lo * (1.0 - 1e-9)) & (v <= hi * (1.0 + 1e-9))])
+    if most and v.shape[0] > most:
+        v = v[::-(-v.shape[0] // most)]
+    return v
+
+
+def _log_axes(ax, x: tuple, y: tuple) -> None:
+    """Limits and ticks of a log–log panel: decades labelled, 2 and 5 marked on y.
+
+    Every tick is a handful of artists and most of the axes' drawing time. The
+    positions are fixed from the limits, so only ticks that show are made (the
+    log locator also makes one beyond each end), none minor on the long tau axis.
+    """
+    from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter, NullLocator
+
+    ax.set_xlim(*x)
+    ax.set_ylim(*y)
+    xmajor = _log_ticks(*x, (1.0,), most=9)
+    ymajor = _log_ticks(*y, (1.0,), most=9)
+    yminor = _log_ticks(*y, (2.0, 5.0))
+    if ymajor.shape[0] < 2:
+        # Less than a decade shown: label 2 and 5 too, or the axis has no number.
+        ymajor, yminor = _log_ticks(*y, (1.0, 2.0, 5.0)), yminor[:0]
+    ax.xaxis.set_major_locator(FixedLocator(xmajor))
     ax.xaxis.set_minor_locator(NullLocator())
-    ax.yaxis.set_minor_locator(LogLocator(10.0, subs=(2.0, 5.0)))
+    ax.yaxis.set_major_locator(FixedLocator(ymajor))
+    ax.yaxis.set_minor_locator(FixedLocator(yminor))
+    ax.xaxis.set_major_formatter(FuncFormatter(_decade))
+    ax.yaxis.set_major_formatter(FuncFormatter(_decade))
     ax.yaxis.set_minor_formatter(NullFormatter())
+
+
+def _panel(ax, model: ChannelModel, dense: AllanCurve, hadamard: AllanCurve) -> None:
+    if ax.get_xscale() != "log":
+        ax.set_xscale("log")
+    if ax.get_yscale() != "log":
+        ax.set_yscale("log")
     ax.fill_between(dense.taus, dense.lower, dense.upper, color="0.8", lw=0)
     ax.plot(dense.taus, dense.dev, color="k", lw=1.2)
     ax.plot(hadamard.taus, hadamard.dev, color="0.45", lw=0.8, ls="-.")
@@ -86,8 +170,7 @@ def _panel(ax, model: ChannelModel, dense: AllanCurve, hadamard: AllanCurve) -> 
         lines.append(f"{_LABEL[name]}: {_fmt(est)}")
     ax.plot(t, np.sqrt(A @ model.coefficients), color="#ff7f0e", lw=1.6)
     lo, hi = np.nanmin(dense.lower), np.nanmax(dense.upper)
-    ax.set_ylim(lo / 3.0, hi * 3.0)
-    ax.set_xlim(dense.taus[0], dense.taus[-1])
+    _log_axes(ax, (dense.taus[0], dense.taus[-1]), (lo / 3.0, hi * 3.0))
     if model.check is not None and not model.check.consistent:
         ax.text(0.99, 0.98, "model check: NOT consistent\n" + model.check.cause[:60] + "…",
                 transform=ax.transAxes, va="top", ha="right", fontsize=6.5, color="#c00000")
@@ -142,8 +225,8 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
     cols = min(3, len(models))
     rows = int(np.ceil(len(models) / cols))
     width, height = 5.8 * cols, 6.0 * rows + 1.1
-    fig = _figure(width, height)
-    axes = fig.subplots(rows, cols, squeeze=False)
+    fig = _figure(width, height, dpi=110)
+    axes = fig.subplots(rows, cols, squeeze=False, subplot_kw=LOG_AXES)
     for ax, model, curve, had in zip(axes.flat, models, dense, hadamard):
         _panel(ax, model, curve, had)
     for ax in list(axes.flat)[len(models):]:
@@ -154,7 +237,7 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
     fig.subplots_adjust(left=0.75 / width, right=1 - 0.25 / width, top=1 - 1.1 / height,
                         bottom=1.75 / height, wspace=0.28, hspace=1.75 * rows / height * 1.9)
     with atomic_path(path) as tmp:
-        fig.savefig(tmp, dpi=110, format="png")
+        _write_png(fig, tmp)
 
 
 def recheck_figure(base: dict, new: dict, path: Path) -> None:

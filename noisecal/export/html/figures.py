@@ -126,11 +126,11 @@ def motion_rows(result, j: int) -> bytes:
 def allan_panel(model, dense, hadamard) -> bytes:
     """One channel's Allan panel as the static job's plot draws it, with its style legend
     in two columns above it (the job's five-column legend is made for three panels)."""
-    from ..plot import _figure, _panel, _style_legend
+    from ..plot import LOG_AXES, _figure, _panel, _style_legend, _write_png
 
     width, height = 6.4, 8.4
-    fig = _figure(width, height)
-    ax = fig.subplots(1, 1)
+    fig = _figure(width, height, dpi=110)
+    ax = fig.subplots(1, 1, subplot_kw=LOG_AXES)
     _panel(ax, model, dense, hadamard)
     _style_legend(fig)
     old = fig.legends.pop()
@@ -140,7 +140,7 @@ def allan_panel(model, dense, hadamard) -> bytes:
     fig.subplots_adjust(left=0.8 / width, right=1 - 0.25 / width, top=1 - 1.5 / height,
                         bottom=1.75 / height)
     buf = io.BytesIO()
-    fig.savefig(buf, dpi=110, format="png")
+    _write_png(fig, buf)
     return buf.getvalue()
 
 
