@@ -20,17 +20,24 @@ from numba import njit
 
 
 @njit(cache=True, nogil=True)
-def _ls(M, b, passive, out):
+def _workspace(k):
+    """Scratch arrays for :func:`_nnls` and :func:`_weighted` on k rows, ≤ 6 columns."""
+    return (np.empty((k, 6)), np.empty((6, 6)), np.empty(6, np.int64), np.empty(6),
+            np.empty(6), np.empty(6, np.bool_), np.empty(6, np.bool_), np.empty(6),
+            np.empty(k), np.empty(6), np.empty((k, 6)), np.empty(6), np.empty(k),
+            np.empty((k, 6)), np.empty(k), np.empty(6), np.empty(6))
+
+
+@njit(cache=True, nogil=True)
+def _ls(M, b, passive, out, ws):
     """Least squares of M[:, passive] x = b (modified Gram–Schmidt), zeros elsewhere."""
+    Q, R, idx, rhs, zq = ws[0], ws[1], ws[2], ws[3], ws[4]
     k, p = M.shape
     q = 0
-    idx = np.empty(p, np.int64)
     for j in range(p):
         if passive[j]:
             idx[q] = j
             q += 1
-    Q = np.empty((k, q))
-    R = np.zeros((q, q))
     for a in range(q):
         for i in range(k):
             Q[i, a] = M[i, idx[a]]
@@ -50,40 +57,39 @@ def _ls(M, b, passive, out):
         if nrm > 0.0:
             for i in range(k):
                 Q[i, a] /= nrm
-    rhs = np.zeros(q)
     for a in range(q):
         d = 0.0
         for i in range(k):
             d += Q[i, a] * b[i]
         rhs[a] = d
-    z = np.zeros(q)
     for a in range(q - 1, -1, -1):
         s = rhs[a]
         for c in range(a + 1, q):
-            s -= R[a, c] * z[c]
-        z[a] = s / R[a, a] if R[a, a] > 0.0 else 0.0
-    out[:] = 0.0
+            s -= R[a, c] * zq[c]
+        zq[a] = s / R[a, a] if R[a, a] > 0.0 else 0.0
+    for j in range(p):
+        out[j] = 0.0
     for a in range(q):
-        out[idx[a]] = z[a]
+        out[idx[a]] = zq[a]
 
 
 @njit(cache=True, nogil=True)
-def nnls(M, b, x):
-    """Lawson–Hanson NNLS of a small dense problem; the solution is written to ``x``.
-
-    As the classical algorithm: a column enters when its dual is positive and its
-    least-squares coefficient with the passive set is positive (otherwise it is
-    passed over until the next step), and the passive solution is moved back to
-    feasibility by interpolation.
-    """
+def _nnls(M, b, x, ws):
+    """:func:`nnls` on caller-owned scratch arrays (``_workspace``)."""
+    passive, skip, z, r, w = ws[5], ws[6], ws[7], ws[8], ws[9]
     k, p = M.shape
-    x[:] = 0.0
-    passive = np.zeros(p, np.bool_)
-    skip = np.zeros(p, np.bool_)
-    z = np.zeros(p)
-    r = b.copy()
+    for j in range(p):
+        x[j] = 0.0
+        passive[j] = False
+        skip[j] = False
+    for i in range(k):
+        r[i] = b[i]
     for _outer in range(3 * p + 3):
-        w = M.T @ r
+        for j in range(p):
+            s = 0.0
+            for i in range(k):
+                s += M[i, j] * r[i]
+            w[j] = s
         j_best, w_best = -1, 0.0
         for j in range(p):
             if not passive[j] and not skip[j] and w[j] > w_best:
@@ -91,19 +97,21 @@ def nnls(M, b, x):
         if j_best < 0:
             break
         passive[j_best] = True
-        _ls(M, b, passive, z)
+        _ls(M, b, passive, z, ws)
         if z[j_best] <= 0.0:
             passive[j_best] = False
             skip[j_best] = True
             continue
-        skip[:] = False
+        for j in range(p):
+            skip[j] = False
         for _inner in range(3 * p + 3):
             ok = True
             for j in range(p):
                 if passive[j] and z[j] <= 0.0:
                     ok = False
             if ok:
-                x[:] = z
+                for j in range(p):
+                    x[j] = z[j]
                 break
             alpha = np.inf
             for j in range(p):
@@ -116,47 +124,59 @@ def nnls(M, b, x):
                 if passive[j] and x[j] <= 0.0:
                     passive[j] = False
                     x[j] = 0.0
-            _ls(M, b, passive, z)
-        r = b - M @ x
+            _ls(M, b, passive, z, ws)
+        for i in range(k):
+            s = b[i]
+            for j in range(p):
+                s -= M[i, j] * x[j]
+            r[i] = s
     return x
 
 
 @njit(cache=True, nogil=True)
-def _weighted(A, avar, nu, cols, passes, c):
+def nnls(M, b, x):
+    """Lawson–Hanson NNLS of a small dense problem (at most 6 columns); the solution
+    is written to ``x``.
+
+    As the classical algorithm: a column enters when its dual is positive and its
+    least-squares coefficient with the passive set is positive (otherwise it is
+    passed over until the next step), and the passive solution is moved back to
+    feasibility by interpolation.
+    """
+    return _nnls(M, b, x, _workspace(M.shape[0]))
+
+
+@njit(cache=True, nogil=True)
+def _weighted(A, avar, nu, cols, passes, c, ws):
     """:func:`noisecal.fit.ieee952.weighted_nnls` on the columns flagged in ``cols``."""
+    sub_full, col_full, ref, M_full, rhs, x_full, cc_full = (ws[10], ws[11], ws[12], ws[13],
+                                                             ws[14], ws[15], ws[16])
     k = A.shape[0]
     q = 0
     for j in range(A.shape[1]):
         if cols[j]:
+            for i in range(k):
+                sub_full[i, q] = A[i, j]
             q += 1
-    idx = np.empty(q, np.int64)
-    q = 0
-    for j in range(A.shape[1]):
-        if cols[j]:
-            idx[q] = j
-            q += 1
-    sub = np.empty((k, q))
-    for a in range(q):
-        for i in range(k):
-            sub[i, a] = A[i, idx[a]]
-    col = np.empty(q)
+    sub = sub_full[:, :q]
+    M = M_full[:, :q]
+    col = col_full[:q]
+    x = x_full[:q]
+    cc = cc_full[:q]
     for a in range(q):
         mx = 0.0
         for i in range(k):
             mx = max(mx, abs(sub[i, a]))
         col[a] = mx if mx != 0.0 else 1.0
-    ref = avar.copy()
-    M = np.empty((k, q))
-    rhs = np.empty(k)
-    x = np.zeros(q)
-    cc = np.zeros(q)
+    for i in range(k):
+        ref[i] = avar[i]
     for _ in range(passes + 1):
         for i in range(k):
             w = np.sqrt(nu[i] / 2.0) / ref[i]
             rhs[i] = avar[i] * w
             for a in range(q):
                 M[i, a] = sub[i, a] * w / col[a]
-        nnls(M, rhs, x)
+        _nnls(M, rhs, x, ws)
         for a in range(q):
             cc[a] = x[a] / col[a]
         for i in range(k):
@@ -164,16 +184,19 @@ def _weighted(A, avar, nu, cols, passes, c):
             for a in range(q):
                 mdl += sub[i, a] * cc[a]
             ref[i] = mdl if mdl > 0.0 else avar[i]
-    c[:] = 0.0
-    for a in range(q):
-        c[idx[a]] = cc[a]
+    q = 0
+    for j in range(A.shape[1]):
+        c[j] = 0.0
+        if cols[j]:
+            c[j] = cc[q]
+            q += 1
 
 
 @njit(cache=True, nogil=True)
 def weighted_nnls(A, avar, nu, passes, c):
     """:func:`noisecal.fit.ieee952.weighted_nnls` on every column of ``A``; written to ``c``."""
     cols = np.ones(A.shape[1], np.bool_)
-    _weighted(A, avar, nu, cols, passes, c)
+    _weighted(A, avar, nu, cols, passes, c, _workspace(A.shape[0]))
     return c
 
 
@@ -217,6 +240,7 @@ def select_many(A, sims, nu, cands, walk_of, penalty, band_penalty, near_tie, wa
         Deviance of that fit (written).
     """
     C = cands.shape[0]
+    ws = _workspace(A.shape[0])
     fits = np.zeros((C, 6))
     crit = np.empty(C)
     valid = np.zeros(C, np.bool_)
@@ -231,7 +255,7 @@ def select_many(A, sims, nu, cands, walk_of, penalty, band_penalty, near_tie, wa
         avar = sims[r]
         best_crit = np.inf
         for c in range(C):
-            _weighted(A, avar, nu, cands[c], passes, fits[c])
+            _weighted(A, avar, nu, cands[c], passes, fits[c], ws)
             valid[c] = True
             n_cols = 0
             for j in range(6):
