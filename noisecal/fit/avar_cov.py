@@ -320,7 +320,7 @@ def avar_covariance(model: NoiseModel, m: np.ndarray, period: float,
     """
     m = np.asarray(m, dtype=np.int64)
     k = m.shape[0]
-    runs, mult = np.unique(np.asarray(lengths, dtype=np.int64), return_counts=True)
+    runs, mult = run_groups(lengths)
     total = np.zeros(k)
     for L, count in zip(runs, mult):
         total += count * np.maximum(L + 1 - 2 * m, 0)
@@ -339,6 +339,34 @@ def avar_covariance(model: NoiseModel, m: np.ndarray, period: float,
     zero = _c_smooth(model, np.zeros(k), mf, mf, period) + model.q2 * 6.0
     mean = np.where(total > 0, (zero + ramp ** 2) / (2.0 * (m * period) ** 2), np.nan)
     return mean, cov
+
+
+MAX_RUN_GROUPS = 32
+"""Distinct run lengths summed one by one; more are grouped (see :func:`run_groups`)."""
+
+
+def run_groups(lengths) -> tuple[np.ndarray, np.ndarray]:
+    """Distinct run lengths and how many runs have each.
+
+    A record broken into many runs of different lengths would cost one pass per
+    length; beyond ``MAX_RUN_GROUPS`` distinct lengths the runs are grouped on a
+    ratio-√2 grid and each group summed as its count of runs of the group's mean
+    length (the sums are close to linear in the length once it is several times the
+    longest factor; total sample count kept).
+
+    Returns
+    -------
+    runs : ndarray of int, shape (g,)
+    counts : ndarray of int, shape (g,)
+    """
+    runs, mult = np.unique(np.asarray(lengths, dtype=np.int64), return_counts=True)
+    if runs.shape[0] <= MAX_RUN_GROUPS:
+        return runs, mult
+    key = np.floor(2.0 * np.log2(np.maximum(runs, 1))).astype(np.int64)
+    groups, inverse = np.unique(key, return_inverse=True)
+    count = np.bincount(inverse, weights=mult)
+    mean = np.bincount(inverse, weights=mult * runs) / count
+    return np.rint(mean).astype(np.int64), count.astype(np.int64)
 
 
 def avar_covariance_reference(model: NoiseModel, m: np.ndarray, period: float,
@@ -365,7 +393,7 @@ def avar_covariance_reference(model: NoiseModel, m: np.ndarray, period: float,
     """
     m = np.asarray(m, dtype=np.int64)
     k = m.shape[0]
-    runs, mult = np.unique(np.asarray(lengths, dtype=np.int64), return_counts=True)
+    runs, mult = run_groups(lengths)
     total = np.zeros(k)
     ramp = np.sqrt(max(model.r2, 0.0)) * (m * period) ** 2
     lag_parts, w_parts, pairs, deltas = [], [], [], []
