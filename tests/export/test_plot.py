@@ -77,9 +77,26 @@ def test_panel_keeps_its_content(fitted):
     red = [t for t in ax.texts if t.get_color() == "#c00000"]
     assert len(red) == 1 and "NOT consistent" in red[0].get_text()
     assert any("left out of the fit" in t.get_text() for t in ax.texts)
-    assert all(name in " ".join(t.get_text() for t in ax.texts)
-               for name in ("quantization", "white noise", "bias instability",
-                            "bias random walk", "rate ramp"))
+    block = next(t.get_text() for t in ax.texts if t.get_text().startswith("Q: ")).split("\n")
+    assert [line.split(":")[0] for line in block] == ["Q", "N", "B", "K", "R"]
+    for line, name in zip(block, ("quantization", "white_noise", "bias_instability",
+                                  "bias_random_walk", "rate_ramp")):
+        est = model.terms[name]
+        assert (f"{est.value:.3g} [{est.lower:.3g}, {est.upper:.3g}]" if est.resolved
+                else f"< {est.upper:.3g}") in line and line.endswith(est.unit)
+
+
+def test_legend_names_every_term_symbol(fitted):
+    """The panels write each term by its letter; the shared legend names them all
+    (IEEE Std 952 symbols Q, N, B, K, R)."""
+    from noisecal.export.plot import _figure, _style_legend
+
+    fig = _figure(4.0, 3.0)
+    _style_legend(fig)
+    labels = [t.get_text() for t in fig.legends[0].get_texts()]
+    for label in ("quantization Q", "white noise N", "bias instability B",
+                  "bias random walk K", "rate ramp R"):
+        assert label in labels
 
 
 def test_figure_written_as_rgb_png(fitted, tmp_path):
