@@ -62,10 +62,10 @@ def _recording(path, meta: dict, time, cols) -> Recording:
         saturated=tuple(SaturatedRun(**r) for r in meta["saturated"]), source=src)
 
 
-def _meta(source, header, digest, size, start, time, cols, repairs) -> dict:
+def _meta(source, header, digest, size, start, time, cols, repairs, extremes=None) -> dict:
     if time.shape[0] < 3:
         raise InputError(f"{source.path}: {time.shape[0]} sample(s); at least 3 are needed")
-    period, jitter, gaps, saturated = summarize(time, cols, header.names)
+    period, jitter, gaps, saturated = summarize(time, cols, header.names, extremes)
     return {
         "layout": cache.LAYOUT, "names": list(header.names), "units": list(header.units),
         "source_units": list(header.source_units), "format": source.format,
@@ -132,6 +132,7 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
         cache.forget(root, state)
         known = None  # the index was wrong or the entry damaged: hash the file again
     header = parse_header(source.headers, str(path))
+    extremes = None
     with _Hasher(path, known, tick("hash")) as hasher:
         if cached:
             return _read_cached(path, source, header, state, root, hasher, tick("read"))
@@ -146,6 +147,7 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
             sink = NpySink(work.path, len(header.names))
             try:
                 start = stream(source, header, sink, None, tick("read"))
+                extremes = sink.extremes  # the clipping search reads only a few blocks
                 release_free_memory()
                 time, cols = sink.finish(in_memory=True)
             finally:
@@ -155,7 +157,7 @@ def read_recording(path: str | Path, repair: str | None = None, use_cache: bool 
         digest = hasher.result()
     _unchanged(path, state)
     repairs = (f"--repair {repair}: {note}",) if note else ()
-    meta = _meta(source, header, digest, size, start, time, cols, repairs)
+    meta = _meta(source, header, digest, size, start, time, cols, repairs, extremes)
     meta["notes"] = list(getattr(source, "notes", ()))
     return _recording(path, meta, time, cols)
 
@@ -268,7 +270,8 @@ def _read_cached(path, source, header, state, root, hasher, tick) -> Recording:
             sink.close()
             work.release()
         else:
-            meta = _meta(source, header, digest, state[1], start, time, cols, ())
+            meta = _meta(source, header, digest, state[1], start, time, cols, (),
+                         sink.extremes)
             meta["probe"] = fingerprint
             del time, cols
             cache.commit(work, root, digest, meta, sink.checksums)

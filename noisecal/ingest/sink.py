@@ -31,6 +31,7 @@ class MemorySink:
     def __init__(self, channels: int):
         self._time: list = []
         self._cols: list = [[] for _ in range(channels)]
+        self.extremes: list = []  # filled by validate.stream
 
     def append(self, time: np.ndarray, cols: list) -> None:
         self._time.append(np.asarray(time, dtype=np.float64))
@@ -82,6 +83,7 @@ class NpySink:
                 self._files.append(open(p, "wb"))
                 self._files[-1].write(b"\0" * NPY_HEADER)
         self.n = 0
+        self.extremes: list = []  # filled by validate.stream
 
     def append(self, time: np.ndarray, cols: list) -> None:
         for k, block in enumerate([time] + list(cols)):

@@ -57,7 +57,10 @@ def stream(source, header: Header, sink, repair: str | None = None, progress=Non
     header : Header
         The parsed header.
     sink : MemorySink or NpySink
-        Receives relative time (s) and SI columns.
+        Receives relative time (s) and SI columns; its ``extremes`` list (when it
+        has one) receives ``(first row, end row, minima, maxima)`` of each
+        block's SI columns (arrays, shape (c,)) for :func:`summarize`, and is
+        emptied if they are not known for every block (a repair).
     repair : {None, "sort", "drop"}
         With a repair, out-of-order timestamps are allowed here and mended in
         :func:`apply_repair` (the sink must then be a MemorySink).
@@ -75,6 +78,8 @@ def stream(source, header: Header, sink, repair: str | None = None, progress=Non
     last = None
     rel_last = None
     peak = np.zeros(len(header.names))
+    known = repair is None
+    extremes = getattr(sink, "extremes", None)
     for time, cols in source.blocks(header.time_integer, progress):
         if time.shape[0] == 0:
             continue
@@ -86,11 +91,16 @@ def stream(source, header: Header, sink, repair: str | None = None, progress=Non
             t0 = time[0]
         quick = _quick_block(time, cols, header, t0, last, rel_last) if repair is None else None
         if quick is not None:
-            rel, si, block_peak = quick
-            np.maximum(peak, block_peak, out=peak)
+            rel, si, low, high = quick
+            np.maximum(peak, np.maximum(np.abs(low), np.abs(high)), out=peak)
+            if extremes is not None and known:
+                extremes.append((rows, rows + time.shape[0], low, high))
         else:
             rel, si = _checked_block(source, header, time, cols, t0, last, rel_last, rows,
                                      repair, peak)
+            known = False
+            if extremes is not None:
+                extremes.clear()
         last = time[-1]
         rel_last = rel[-1]
         sink.append(rel, si)
@@ -114,9 +124,9 @@ def _quick_block(time, cols, header: Header, t0, last, rel_last):
 
     Returns
     -------
-    (rel, si, peak) or None
+    (rel, si, low, high) or None
         Relative time (s), SI columns (a column already in SI is passed on as
-        is) and each column's largest magnitude in SI.
+        is), and each column's smallest and largest value in SI.
     """
     with np.errstate(over="ignore", under="ignore", invalid="ignore"):
         if time.dtype.kind == "f" and not (np.isfinite(time[0]) and np.isfinite(time[-1])):
@@ -133,7 +143,7 @@ def _quick_block(time, cols, header: Header, t0, last, rel_last):
             return None
         if rel.shape[0] > 1 and not np.diff(rel).min() >= MIN_STEP_S:
             return None
-        si, peak = [], np.empty(len(cols))
+        si, low, high = [], np.empty(len(cols)), np.empty(len(cols))
         for i, (c, s, o) in enumerate(zip(cols, header.scale, header.offset)):
             hi, lo = c.max(), c.min()
             if not (np.isfinite(hi) and np.isfinite(lo)):
@@ -141,15 +151,14 @@ def _quick_block(time, cols, header: Header, t0, last, rel_last):
             ends = np.array([hi, lo], dtype=np.float64) * s
             if o:
                 ends = ends + o
-            top = float(np.max(np.abs(ends)))
-            if not top <= SI_LIMIT:
+            if not np.max(np.abs(ends)) <= SI_LIMIT:
                 return None
-            peak[i] = top
+            low[i], high[i] = ends.min(), ends.max()  # a negative scale swaps them
             if s == 1.0 and not o and c.dtype == np.float64:
                 si.append(c)
             else:
                 si.append(c * s + o if o else c * s)
-    return rel, si, peak
+    return rel, si, low, high
 
 
 def _checked_block(source, header: Header, time, cols, t0, last, rel_last, rows, repair,
@@ -288,8 +297,12 @@ def _steps(time: np.ndarray):
         yield a, np.diff(np.asarray(time[a:b]))
 
 
-def summarize(time: np.ndarray, cols: list, names: tuple):
+def summarize(time: np.ndarray, cols: list, names: tuple, extremes: list | None = None):
     """Period, jitter, gaps and saturated runs of validated columns.
+
+    ``extremes`` (from :func:`stream`: each block's rows and its columns'
+    minima and maxima) lets the search for clipped runs read only the blocks
+    holding a column's extreme value; without it every value is read.
 
     Returns
     -------
@@ -319,16 +332,26 @@ def summarize(time: np.ndarray, cols: list, names: tuple):
         s2 += float(np.dot(dev, dev))
     jitter = float(np.sqrt(max(s2 / count - (s1 / count) ** 2, 0.0))) if count > 1 else 0.0
     saturated = []
-    for name, col in zip(names, cols):
-        saturated.extend(_saturated_runs(name, time, col))
+    for i, (name, col) in enumerate(zip(names, cols)):
+        blocks = None
+        if extremes:
+            blocks = [(a, b, low[i], high[i]) for a, b, low, high in extremes]
+        saturated.extend(_saturated_runs(name, time, col, blocks))
     return period, jitter, tuple(gaps), tuple(saturated)
 
 
-def _saturated_runs(name: str, t: np.ndarray, y: np.ndarray) -> list:
+def _saturated_runs(name: str, t: np.ndarray, y: np.ndarray, blocks=None) -> list:
+    if blocks is None:
+        n = y.shape[0]
+        blocks = [(a, min(a + SUMMARY_BLOCK, n), float(np.min(y[a:a + SUMMARY_BLOCK])),
+                   float(np.max(y[a:a + SUMMARY_BLOCK]))) for a in range(0, n, SUMMARY_BLOCK)]
     runs = []
-    for extreme in {float(np.max(y)), float(np.min(y))}:
-        hits = np.concatenate([a + np.flatnonzero(np.asarray(y[a:a + SUMMARY_BLOCK]) == extreme)
-                               for a in range(0, y.shape[0], SUMMARY_BLOCK)])
+    top, bottom = max(b[3] for b in blocks), min(b[2] for b in blocks)
+    for extreme in {float(top), float(bottom)}:
+        # Only a block whose own extreme is the column's can hold the value.
+        spans = [(a, b) for a, b, low, high in blocks if low == extreme or high == extreme]
+        hits = np.concatenate([a + np.flatnonzero(np.asarray(y[a:b]) == extreme)
+                               for a, b in spans])
         if hits.size < SATURATION_MIN_RUN:
             continue
         breaks = np.flatnonzero(np.diff(hits) != 1)

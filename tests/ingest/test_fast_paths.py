@@ -78,7 +78,7 @@ def reference(time, cols, header, t0, last, rel_last):
     si = [c * s + o if o else c * s for c, s, o in zip(cols, header.scale, header.offset)]
     if not all((np.abs(c) <= SI_LIMIT).all() for c in si):
         return None
-    return rel, si, np.array([np.max(np.abs(c)) for c in si])
+    return rel, si, np.array([c.min() for c in si]), np.array([c.max() for c in si])
 
 
 @pytest.mark.parametrize("case", ["clean", "nan", "inf", "repeat", "backwards", "boundary",
@@ -119,5 +119,46 @@ def test_quick_block_checks_agree_with_element_wise_checks(case):
         for a, b in zip(got[1], want[1]):
             np.testing.assert_array_equal(a, b)
         np.testing.assert_array_equal(got[2], want[2])
+        np.testing.assert_array_equal(got[3], want[3])
     if case in ("clean", "clean after"):
         assert want is not None
+
+
+def runs_at(y, value, least=5):
+    """Start indices and lengths of runs of at least ``least`` samples equal to value."""
+    hit = np.concatenate([[0], (y == value).astype(int), [0]])
+    edges = np.flatnonzero(np.diff(hit))
+    return [(int(a), int(b - a)) for a, b in zip(edges[::2], edges[1::2]) if b - a >= least]
+
+
+@pytest.mark.parametrize("cached", [True, False])
+def test_clipped_runs_found_from_block_extremes_as_by_a_full_scan(tmp_path, monkeypatch,
+                                                                  fresh_cache, cached):
+    """Clipping at the top and bottom, runs across block ends and in several blocks:
+    the runs found from each block's extremes are those a scan of every value finds
+    (common practice, no source)."""
+    monkeypatch.setattr(csv_reader, "ARROW_BLOCK_BYTES", 4096)
+    monkeypatch.setattr(csv_reader, "SEGMENT_BYTES", 20000)
+    rng = np.random.default_rng(2)
+    n = 6000
+    y = np.round(rng.standard_normal(n), 6)
+    for a, k in ((130, 9), (2990, 30), (5000, 5), (40, 4)):
+        y[a:a + k] = 5.5
+    y[4100:4120] = -5.25
+    path = tmp_path / "clip.csv"
+    with open(path, "w") as fh:
+        fh.write("time [s],acc [g]\n")
+        np.savetxt(fh, np.column_stack([np.arange(n) * 0.01, y]), delimiter=",", fmt="%.9g")
+    rec = read_recording(path, use_cache=cached)
+    si = y * 9.80665
+    want = sorted([(a, k, si.max()) for a, k in runs_at(si, si.max())]
+                  + [(a, k, si.min()) for a, k in runs_at(si, si.min())])
+    got = [(int(round(r.start_s / 0.01)), r.samples, r.value) for r in rec.saturated]
+    assert got == want and len(want) == 4
+
+
+@pytest.fixture
+def fresh_cache(tmp_path, monkeypatch):
+    root = tmp_path / "cache"
+    monkeypatch.setenv("NOISECAL_CACHE", str(root))
+    return root
