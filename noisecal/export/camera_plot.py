@@ -4,16 +4,11 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib
+import numpy as np
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-from scipy import stats  # noqa: E402
-
-from ..fit.camera import law_sigma  # noqa: E402
-from .atomic import atomic_path  # noqa: E402
-from .motion_plot import ellipse  # noqa: E402
+from ..fit.camera import law_sigma
+from .atomic import atomic_path
+from .motion_plot import ellipse, normal_pdf
 
 
 def camera_figure(res, path: Path) -> None:
@@ -23,7 +18,10 @@ def camera_figure(res, path: Path) -> None:
     with the fitted laws and their bands and the propagated values; the pixel
     residual histograms with the inlier Gaussians."""
     m, cam, survey = res.model, res.camera, res.survey
-    fig, axes = plt.subplots(1, 4, figsize=(22, 5))
+    from .plot import _figure
+
+    fig = _figure(22, 5)
+    axes = fig.subplots(1, 4)
     ax = axes[0]
     idx = survey.index([t["id"] for t in m.targets])
     proj = res.projected[idx]
@@ -93,7 +91,7 @@ def camera_figure(res, path: Path) -> None:
         ax.hist(resid[:, j], bins=bins, density=True, histtype="step", color=color,
                 label=f"{name} residuals")
         s = m.sigma[name].value
-        ax.plot(x, share * stats.norm.pdf(x, resid[m.pixel.inliers, j].mean(), s), color=color,
+        ax.plot(x, share * normal_pdf(x, resid[m.pixel.inliers, j].mean(), s), color=color,
                 lw=0.8, ls="--", label=f"{name}: Gaussian of R, σ = {s:.3g} px")
     ax.set_yscale("log")
     ax.set_ylim(1e-4, None)
@@ -105,4 +103,3 @@ def camera_figure(res, path: Path) -> None:
     fig.tight_layout()
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=100, format="png")
-    plt.close(fig)

@@ -4,16 +4,17 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib
+import numpy as np
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-from scipy import stats  # noqa: E402
-
-from .atomic import atomic_path  # noqa: E402
+from .atomic import atomic_path
 
 _IN, _OUT = "#1f77b4", "#d62728"
+
+
+def normal_pdf(x: np.ndarray, mean: float, sd: float) -> np.ndarray:
+    """Gaussian density at ``x`` (a drawn curve: spares loading scipy.stats)."""
+    z = (np.asarray(x, dtype=float) - mean) / sd
+    return np.exp(-0.5 * z * z) / (sd * np.sqrt(2.0 * np.pi))
 
 
 def ellipse(cov: np.ndarray, level2: float, points: int = 200) -> np.ndarray:
@@ -25,6 +26,8 @@ def ellipse(cov: np.ndarray, level2: float, points: int = 200) -> np.ndarray:
 
 
 def _channel_row(axes, res, j):
+    from scipy.special import ndtri  # the normal quantile function
+
     m = res.model
     ch = m.channels[j]
     r = res.residuals[:, j]
@@ -37,12 +40,12 @@ def _channel_row(axes, res, j):
     ax.hist(r, bins=bins, density=True, color="0.75", label="all residuals")
     x = np.linspace(bins[0], bins[-1], 400)
     share = np.count_nonzero(inl) / r.shape[0]
-    ax.plot(x, share * stats.norm.pdf(x, ch.bias.value, ch.sigma.value), color=_IN,
+    ax.plot(x, share * normal_pdf(x, ch.bias.value, ch.sigma.value), color=_IN,
             label=f"inlier Gaussian, σ = {ch.sigma.value:.3g} {ch.unit}")
     all_sd = ch.sigma_all
-    ax.plot(x, stats.norm.pdf(x, r.mean(), all_sd), "--", color="0.3", lw=0.9,
+    ax.plot(x, normal_pdf(x, r.mean(), all_sd), "--", color="0.3", lw=0.9,
             label=f"Gaussian of all samples, σ = {all_sd:.3g}")
-    ax.plot(x, stats.norm.pdf(x, m.robust_location[j], np.sqrt(m.robust_scatter[j, j])), ":",
+    ax.plot(x, normal_pdf(x, m.robust_location[j], np.sqrt(m.robust_scatter[j, j])), ":",
             color="#2ca02c", lw=1.2, label="robust (MCD) fit")
     ax.set_yscale("log")
     ax.set_ylim(1e-3 / max(span, 1e-300), None)
@@ -52,8 +55,8 @@ def _channel_row(axes, res, j):
     ax = axes[1]
     q = np.sort((r - ch.bias.value) / ch.sigma.value)
     p = (np.arange(q.shape[0]) + 0.5) / q.shape[0]
-    ax.plot(stats.norm.ppf(p), q, ".", ms=2, color=_IN)
-    lim = stats.norm.ppf(p[[0, -1]])
+    ax.plot(ndtri(p), q, ".", ms=2, color=_IN)
+    lim = ndtri(p[[0, -1]])
     ax.plot(lim, lim, color="k", lw=0.8)
     ax.set_ylim(-8, 8)
     ax.set_title(f"{ch.name}: QQ against the inlier Gaussian", fontsize=9)
@@ -104,7 +107,10 @@ def motion_figure(res, path: Path) -> None:
     """
     c = len(res.model.order)
     rows = c + (1 if c >= 2 else 0)
-    fig, axes = plt.subplots(rows, 5, figsize=(22, 3.6 * rows), squeeze=False)
+    from .plot import _figure
+
+    fig = _figure(22, 3.6 * rows)
+    axes = fig.subplots(rows, 5, squeeze=False)
     for j in range(c):
         _channel_row(axes[j], res, j)
     if c >= 2:
@@ -136,4 +142,3 @@ def motion_figure(res, path: Path) -> None:
     fig.tight_layout()
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=100, format="png")
-    plt.close(fig)

@@ -4,13 +4,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib
+import numpy as np
 
-matplotlib.use("Agg")
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-
-from .atomic import atomic_path  # noqa: E402
+from .atomic import atomic_path
 
 _LABELS = (("δrot1", "rad"), ("δtrans", "m"), ("δrot2", "rad"))
 
@@ -22,7 +18,10 @@ def odometry_figure(res, path: Path) -> None:
     m = res.model
     keep = ~m.slip
     var = m.variances(m.motion_odo)
-    fig, axes = plt.subplots(1, 4, figsize=(19, 4.2))
+    from .plot import _figure
+
+    fig = _figure(19, 4.2)
+    axes = fig.subplots(1, 4)
     for j, (name, unit) in enumerate(_LABELS):
         ax = axes[j]
         # Against the truth's motion: the odometry's own includes the error itself.
@@ -53,4 +52,3 @@ def odometry_figure(res, path: Path) -> None:
     fig.tight_layout()
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=100, format="png")
-    plt.close(fig)
