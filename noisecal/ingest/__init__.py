@@ -258,7 +258,7 @@ def _read_cached(path, source, header, state, root, hasher, tick) -> Recording:
                           "free some space or pass --no-cache") from None
     sink = None
     try:
-        sink = NpySink(work.path, len(header.names), checksum=True)
+        sink = NpySink(work.path, len(header.names))
         start = stream(source, header, sink, None, tick)
         time, cols = sink.finish()
         digest = hasher.result()
@@ -274,7 +274,7 @@ def _read_cached(path, source, header, state, root, hasher, tick) -> Recording:
                          sink.extremes)
             meta["probe"] = fingerprint
             del time, cols
-            cache.commit(work, root, digest, meta, sink.checksums)
+            cache.commit(work, root, digest, meta)
         cache.remember(root, state, digest)
     except OSError as exc:
         if sink is not None:

@@ -9,22 +9,20 @@ next run (:func:`clean`).
 
 What is checked, and when:
 
-* ``meta.json`` holds, for each column file, the CRC-32 of its data bytes, its
-  stat fingerprint when written (size, mtime and ctime in ns, inode) and
-  the CRC-32 of ``SAMPLE_WINDOWS`` windows spread over it (the first and
-  last included), and a SHA-256 of its own content. On every load: the
-  SHA-256 of ``meta.json``, the entry's recorded input hash (it must be the
-  one asked for), each column's shape and dtype, its stat fingerprint and
-  its sampled windows. A column whose fingerprint changed (any write to the
-  file, a truncation, a copy or restore, even with the mtime put back: the
-  ctime then changes) is checked in full against its CRC-32, and when it
-  passes the new fingerprint is recorded, so the next load is cheap again.
-  An entry that fails any check is removed, rebuilt from the input, and the
-  run says so in one note on stderr.
-* Not checked on a load with unchanged fingerprints: bytes outside the sampled
-  windows that changed without any write through the file system (a failing
-  disk, memory errors) - a full check reads every byte, and serving a warm
-  run at once is the cache's purpose.
+* ``meta.json`` holds, for each column file, its stat fingerprint when written
+  (size, mtime and ctime in ns, inode) and the CRC-32 of ``SAMPLE_WINDOWS``
+  windows spread over it (the first and last included), and a SHA-256 of its
+  own content. On every load: the SHA-256 of ``meta.json``, the entry's
+  recorded input hash (it must be the one asked for), each column's shape
+  and dtype, its stat fingerprint and its sampled windows. A column whose
+  fingerprint changed (any write to the file, a truncation, a copy or
+  restore, even with the mtime put back: the ctime then changes) is not
+  trusted. An entry that fails any check is removed, rebuilt from the input,
+  and the run says so in one note on stderr.
+* Not checked: bytes outside the sampled windows that changed without any
+  write through the file system (a failing disk, memory errors); finding
+  those means reading every byte on every load, which the cache is there to
+  avoid.
 * To avoid hashing a multi-GB file on every run, an index maps (real path,
   size, mtime, ctime, inode, device) to the content hash; any change to the
   file changes its ctime and forces a new hash. Each index record carries a
@@ -52,7 +50,6 @@ import os
 import shutil
 import tempfile
 import zlib
-from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import numpy as np
@@ -190,16 +187,6 @@ def _canonical(obj) -> bytes:
     return json.dumps(obj, sort_keys=True, separators=(",", ":")).encode()
 
 
-def _data_crc(array: np.ndarray) -> str:
-    """CRC-32 (8 hex digits) of an array's data bytes, in 32 MiB calls (each releases the GIL)."""
-    crc = 0
-    flat = array.reshape(-1)
-    step = 1 << 22
-    for a in range(0, max(flat.shape[0], 1), step):
-        crc = zlib.crc32(np.ascontiguousarray(flat[a:a + step]).data, crc)
-    return f"{crc:08x}"
-
-
 def stat_fingerprint(path: Path) -> list:
     """(size, mtime ns, ctime ns, inode) of a file: any write through the file
     system changes the ctime, which cannot be set back."""
@@ -229,7 +216,7 @@ def _stored_checksum(stored: dict) -> str:
                                       if k != "meta_sha256"})).hexdigest()
 
 
-def _read_entry(folder: Path, digest: str, verify: bool):
+def _read_entry(folder: Path, digest: str):
     try:
         stored = json.loads((folder / "meta.json").read_text())
     except (OSError, ValueError) as exc:
@@ -238,20 +225,19 @@ def _read_entry(folder: Path, digest: str, verify: bool):
         raise Damaged("meta.json has another layout")
     if stored.get("meta_sha256") != _stored_checksum(stored):
         raise Damaged("meta.json does not match its checksum")
-    meta, files = stored["meta"], stored.get("files")
-    stats, samples = stored.get("stat"), stored.get("sampled")
+    meta, stats, samples = stored["meta"], stored.get("stat"), stored.get("sampled")
     if meta.get("sha256") != digest or meta.get("layout") != LAYOUT:
         raise Damaged("the entry records another input hash")
     names = ["time.npy"] + [f"c{i}.npy" for i in range(len(meta["names"]))]
-    for table in (files, stats, samples):
+    for table in (stats, samples):
         if not isinstance(table, dict) or sorted(table) != sorted(names):
             raise Damaged("meta.json lists other column files")
-    arrays, changed = [], []
+    arrays = []
     for name in names:
         path = folder / name
         try:
             if stat_fingerprint(path) != stats[name]:
-                changed.append(name)
+                raise Damaged(f"{name} was changed after the entry was written")
             if len(names) > MAP_LIMIT:
                 with open(path, "rb") as fh:
                     if np.lib.format.read_magic(fh) != (1, 0):
@@ -272,32 +258,10 @@ def _read_entry(folder: Path, digest: str, verify: bool):
         if sampled != samples[name]:
             raise Damaged(f"{name} does not match its checksum")
         arrays.append(array)
-    full = names if verify else changed
-    if full:
-        with ThreadPoolExecutor(2) as pool:
-            sums = list(pool.map(_data_crc, [arrays[names.index(n)] for n in full]))
-        for name, got in zip(full, sums):
-            if got != files[name]:
-                raise Damaged(f"{name} does not match its checksum")
-    if changed:
-        # Checked in full and sound (copied, restored, touched): record the files as
-        # they are now, so the next load needs no full check.
-        for name in changed:
-            stats[name] = stat_fingerprint(folder / name)
-        _write_stored(folder, stored)
     return meta, arrays[0], arrays[1:]
 
 
-def _write_stored(folder: Path, stored: dict) -> None:
-    """Write ``meta.json`` (its checksum recomputed) atomically."""
-    stored["meta_sha256"] = _stored_checksum(stored)
-    try:
-        _write_json(folder / "meta.json", stored)
-    except OSError:
-        pass  # a read-only cache: the next load checks in full again
-
-
-def load(root: Path, digest: str, verify: bool = False, expect_probe: str | None = None):
+def load(root: Path, digest: str, expect_probe: str | None = None):
     """(meta, time, columns) from a complete, intact entry, or None.
 
     Parameters
@@ -306,9 +270,6 @@ def load(root: Path, digest: str, verify: bool = False, expect_probe: str | None
         Cache folder.
     digest : str
         SHA-256 of the input.
-    verify : bool
-        Check every column in full against its CRC-32, whatever its stat
-        fingerprint says (by default only columns whose fingerprint changed).
     expect_probe : str, optional
         The input's :func:`probe`; an entry recording another is not served
         (the index pointed at the wrong entry) but left in place.
@@ -319,7 +280,7 @@ def load(root: Path, digest: str, verify: bool = False, expect_probe: str | None
     if not folder.is_dir():
         return None
     try:
-        meta, time, cols = _read_entry(folder, digest, verify)
+        meta, time, cols = _read_entry(folder, digest)
     except (Damaged, KeyError, TypeError) as exc:
         why = str(exc) if isinstance(exc, Damaged) else "meta.json lacks a field"
         shutil.rmtree(folder, ignore_errors=True)
@@ -336,16 +297,17 @@ def new_entry(root: Path) -> LockedFolder:
     return LockedFolder(root, BUILDING)
 
 
-def commit(work: LockedFolder, root: Path, digest: str, meta: dict, files: dict) -> bool:
-    """Write ``meta.json`` (with its checksums) last, then rename the folder into place.
+def commit(work: LockedFolder, root: Path, digest: str, meta: dict) -> bool:
+    """Write ``meta.json`` (with the columns' fingerprints and its checksum) last,
+    then rename the folder into place.
 
     Returns
     -------
     bool
         False if another run put the entry there first (theirs is kept).
     """
-    names = sorted(files)
-    stored = {"meta": meta, "files": files,
+    names = ["time.npy"] + [f"c{i}.npy" for i in range(len(meta["names"]))]
+    stored = {"meta": meta,
               "stat": {n: stat_fingerprint(work.path / n) for n in names},
               "sampled": {n: sampled_crc(work.path / n) for n in names}}
     stored["meta_sha256"] = _stored_checksum(stored)

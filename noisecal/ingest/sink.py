@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import ctypes
 import io
-import zlib
 from pathlib import Path
 
 import numpy as np
@@ -62,14 +61,10 @@ class NpySink:
         Folder for ``time.npy`` and ``c<i>.npy`` (created by the caller).
     channels : int
         Number of channel columns.
-    checksum : bool
-        Keep the CRC-32 of each column's data bytes (after the header), for
-        the cache's checks on load; see :attr:`checksums`.
     """
 
-    def __init__(self, folder: Path, channels: int, checksum: bool = False):
+    def __init__(self, folder: Path, channels: int):
         self.paths = [folder / "time.npy"] + [folder / f"c{i}.npy" for i in range(channels)]
-        self._crcs = [0] * len(self.paths) if checksum else None
         self._wide = len(self.paths) > MAX_OPEN_FILES
         self._files: list = []
         self._pending: list = [[] for _ in self.paths] if self._wide else []
@@ -88,8 +83,6 @@ class NpySink:
     def append(self, time: np.ndarray, cols: list) -> None:
         for k, block in enumerate([time] + list(cols)):
             data = np.ascontiguousarray(block, dtype="<f8")
-            if self._crcs is not None:
-                self._crcs[k] = zlib.crc32(data.data, self._crcs[k])  # releases the GIL
             if self._wide:
                 self._pending[k].append(data)
                 self._pending_bytes += data.nbytes
@@ -107,13 +100,6 @@ class NpySink:
                         data.tofile(fh)
                 blocks.clear()
         self._pending_bytes = 0
-
-    @property
-    def checksums(self) -> dict:
-        """File name → CRC-32 (8 hex digits) of its data bytes, as appended so far."""
-        if self._crcs is None:
-            raise RuntimeError("this sink was made without checksum=True")
-        return {p.name: f"{c:08x}" for p, c in zip(self.paths, self._crcs)}
 
     def close(self) -> None:
         for fh in self._files:
