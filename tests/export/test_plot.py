@@ -113,3 +113,27 @@ def test_figure_written_as_rgb_png(fitted, tmp_path):
         assert im.size == (round(5.8 * 2 * 110), round((6.0 + 1.1) * 110))
         assert np.asarray(im).std() > 10  # something drawn
     assert not list(tmp_path.glob(".*"))
+
+
+def test_png_decodes_to_the_drawn_pixels():
+    """Reference library: Pillow's PNG decoder reads the written file back to exactly
+    the canvas's RGB pixels, at the figure's dpi (PNG, ISO/IEC 15948)."""
+    import io
+
+    from PIL import Image
+
+    from noisecal.export.plot import _figure, _write_png
+
+    fig = _figure(3.0, 2.0, dpi=90)
+    ax = fig.subplots()
+    ax.fill_between([1, 2, 3], [1, 2, 1], [2, 3, 3], color="0.8")
+    ax.plot([1, 3], [3, 1], color="#d62728")
+    ax.set_title("τ 10⁻³")
+    buf = io.BytesIO()
+    _write_png(fig, buf, level=6)
+    with Image.open(io.BytesIO(buf.getvalue())) as im:
+        im.load()
+        assert im.mode == "RGB" and im.size == (270, 180)
+        assert im.info["dpi"] == pytest.approx((90.0, 90.0), abs=0.01)
+        np.testing.assert_array_equal(np.asarray(im),
+                                      np.asarray(fig.canvas.buffer_rgba())[:, :, :3])
