@@ -34,12 +34,13 @@ ARROW_BLOCK_BYTES = 1 << 21
 all cores; each block is checked and written as one). Measured here (2 cores, 2 h
 6-channel CSV, first read with the cache): 2 MiB blocks 12 % faster than 1 MiB (fewer
 per-block steps), 4 MiB no faster and up to 1.5x the decoded arrays at peak."""
-SEGMENT_BYTES = 1 << 24
-"""Bytes of CSV text parsed in one call of pyarrow's reader; the next segment is
-parsed while one is handed out. Measured here (2 cores, 2 h 6-channel CSV): 16-32 MiB
-segments read about as fast as the whole body in one call (and 1.5-2x faster than
-pyarrow's streaming reader), holding 0.25-0.4x the decoded arrays at peak where one
-call holds 1.4x."""
+SEGMENT_BYTES = 1 << 23
+"""Bytes of CSV text parsed in one call of pyarrow's reader (from a native stream
+over the segment); the next segment is parsed while one is handed out. Measured
+here (2 cores, 1-2 h 6-channel CSVs): 8-32 MiB segments read about as fast as the
+whole body in one call and 1.5-2x faster than pyarrow's streaming reader; a cold
+read's peak memory is 1.1-1.3x the decoded arrays with 8 MiB, 1.25-1.45x with
+16 MiB (one call: 1.4x for the parse alone)."""
 PARSE_THREADS = 2
 PARSE_AHEAD = 3
 """Blocks submitted ahead of the one being written: bounds the text and frames held."""
@@ -314,25 +315,27 @@ class CsvSource:
         memory = pa.system_memory_pool()
 
         def parse(span):
-            # A Python file, not a native one: its reads take the GIL, which keeps
-            # the reader's read-ahead to a few blocks (a native file measured 2.75x
-            # the decoded arrays at peak, this 1.5x at most).
-            with open(self.path, "rb") as fh:
-                fh.seek(span[0])
-                return pacsv.read_csv(_Span(fh, span[1]), read_options=read_options,
+            # A native stream over the segment: its reads never take the GIL (a
+            # Python file's did, and made the main thread's writes wait for it).
+            with pa.OSFile(str(self.path), memory_pool=memory) as fh:
+                return pacsv.read_csv(fh.get_stream(span[0], span[1] - span[0]),
+                                      read_options=read_options,
                                       parse_options=parse_options,
                                       convert_options=convert_options, memory_pool=memory)
 
-        # The next segment is parsed while this one's blocks are checked and written.
-        with ThreadPoolExecutor(1) as ahead:
+        # The next segment is parsed (on all cores) while one is checked and written.
+        with ThreadPoolExecutor(1) as pool:
+            pending: deque = deque()
             spans = self._segments()
             span = next(spans, None)
-            pending = ahead.submit(parse, span) if span else None
-            while pending is not None:
-                table = pending.result()
-                end = span[1]
+            if span is not None:
+                pending.append((span[1], pool.submit(parse, span)))
+            while pending:
+                end, future = pending.popleft()
+                table = future.result()
                 span = next(spans, None)
-                pending = ahead.submit(parse, span) if span else None
+                if span is not None:
+                    pending.append((span[1], pool.submit(parse, span)))
                 if any(col.null_count for col in table.columns):
                     raise ValueError("a hole")  # empty or NaN cell: the scan names it
                 batches = table.to_batches()
@@ -429,26 +432,6 @@ def _view(col) -> np.ndarray:
     if col.null_count or dtype.itemsize * 8 != col.type.bit_width:
         raise ValueError("a hole")  # not reached: the reader gives these types, no nulls
     return np.frombuffer(col.buffers()[1], dtype=dtype, count=len(col), offset=col.offset * 8)
-
-
-class _Span(io.RawIOBase):
-    """A binary file read from its current position up to ``end`` only."""
-
-    def __init__(self, fh, end: int):
-        super().__init__()
-        self._fh, self._end = fh, end
-
-    def readable(self) -> bool:
-        return True
-
-    def read(self, n: int = -1) -> bytes:
-        left = max(self._end - self._fh.tell(), 0)
-        return self._fh.read(left if n is None or n < 0 else min(n, left))
-
-    def readinto(self, buffer) -> int:
-        data = self.read(len(buffer))
-        buffer[:len(data)] = data
-        return len(data)
 
 
 def _line_end(fh, pos: int, size: int) -> int:

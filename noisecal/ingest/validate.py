@@ -317,16 +317,25 @@ def summarize(time: np.ndarray, cols: list, names: tuple, extremes: list | None 
     if n - 1 <= PERIOD_SAMPLE:
         sample = np.diff(np.asarray(time))
     else:
+        # In place: a few arrays of PERIOD_SAMPLE at a time, not twice as many.
         idx = np.linspace(0, n - 2, PERIOD_SAMPLE).astype(np.int64)
-        sample = np.asarray(time[idx + 1]) - np.asarray(time[idx])
-    period = float(np.median(sample))
+        before = np.asarray(time[idx])
+        idx += 1
+        sample = np.asarray(time[idx])
+        del idx
+        sample -= before
+        del before
+    period = float(np.median(sample, overwrite_input=True))
+    del sample
     gaps, count, s1, s2 = [], 0, 0.0, 0.0
     for a, step in _steps(time):
         is_gap = step > GAP_FACTOR * period
-        for i in np.flatnonzero(is_gap):
+        where = np.flatnonzero(is_gap)
+        for i in where:
             gaps.append(Gap(start_s=float(time[a + i]), length_s=float(step[i] - period),
                             missing=int(round(step[i] / period)) - 1, index=int(a + i + 1)))
-        dev = step[~is_gap] - period
+        dev = step[~is_gap] if where.size else step  # a fresh array: changed in place
+        dev -= period
         count += dev.shape[0]
         s1 += float(dev.sum())
         s2 += float(np.dot(dev, dev))
