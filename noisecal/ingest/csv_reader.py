@@ -22,6 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import InputError
+from .columnar import numpy_view
 from .sink import release_free_memory
 
 _SNIFF_BYTES = 8192
@@ -345,7 +346,7 @@ class CsvSource:
                     batch = batches.pop()
                     if batch.num_rows == 0:
                         continue
-                    arrays = [_view(col) for col in batch.columns]
+                    arrays = [numpy_view(col) for col in batch.columns]
                     del batch
                     yield arrays[0], arrays[1:]
                     del arrays
@@ -420,18 +421,6 @@ class CsvSource:
             return 0
         yield arrays[0], arrays[1:]
         return arrays[0].shape[0]
-
-
-def _view(col) -> np.ndarray:
-    """A numpy view of a pyarrow int64 or float64 array without nulls.
-
-    ``Array.to_numpy`` would do the same but imports pandas (0.7 s here) on
-    its first call.
-    """
-    dtype = np.dtype(np.int64 if str(col.type) == "int64" else np.float64)
-    if col.null_count or dtype.itemsize * 8 != col.type.bit_width:
-        raise ValueError("a hole")  # not reached: the reader gives these types, no nulls
-    return np.frombuffer(col.buffers()[1], dtype=dtype, count=len(col), offset=col.offset * 8)
 
 
 def _line_end(fh, pos: int, size: int) -> int:

@@ -162,3 +162,40 @@ def fresh_cache(tmp_path, monkeypatch):
     root = tmp_path / "cache"
     monkeypatch.setenv("NOISECAL_CACHE", str(root))
     return root
+
+
+NO_PANDAS = """
+import sys
+from noisecal.ingest import read_recording
+rec = read_recording(sys.argv[1], use_cache=False)
+print(rec.n, 'pandas' in sys.modules)
+"""
+
+
+@pytest.mark.parametrize("kind", ["csv", "parquet"])
+def test_reading_does_not_load_pandas(tmp_path, kind):
+    """Columns come out of pyarrow as numpy views without Array.to_numpy, whose first
+    call imports pandas; the values are pyarrow's own (reference library)."""
+    import subprocess
+    import sys
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    n = 3000
+    rng = np.random.default_rng(4)
+    table = pa.table({"time [s]": np.arange(n) * 0.01,
+                      "a [rad/s]": rng.standard_normal(n).astype(np.float32),
+                      "b [rad/s]": rng.integers(-1000, 1000, n).astype(np.int16)})
+    path = tmp_path / f"r.{kind}"
+    if kind == "parquet":
+        pq.write_table(table, path, row_group_size=1000)
+    else:
+        path.write_text("time [s],a [rad/s],b [rad/s]\n" + "".join(
+            f"{t!r},{a!r},{b}\n" for t, a, b in zip(*(c.to_pylist() for c in table.columns))))
+    out = subprocess.run([sys.executable, "-c", NO_PANDAS, str(path)], capture_output=True,
+                         text=True, check=True).stdout.split()
+    assert out == [str(n), "False"]
+    rec = read_recording(path, use_cache=False)
+    np.testing.assert_array_equal(rec.channel("a"), table.column(1).to_numpy().astype(float))
+    np.testing.assert_array_equal(rec.channel("b"), table.column(2).to_numpy().astype(float))
