@@ -21,7 +21,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
+from scipy.special import ndtri
 
 from ..errors import AnalysisError
 from .residuals import MAD_TO_SIGMA, acf
@@ -202,6 +202,8 @@ def estimate_offset(sensor: np.ndarray, truth: list, t: np.ndarray,
 
 
 def _estimate_offset(sensor, truth, t, max_offset, level) -> Alignment:
+    from scipy import optimize  # here, not at import: only the offset search uses it
+
     inside = _usable(truth, t, 0.0)
     if np.count_nonzero(inside) < 50:
         raise AnalysisError("sensor and truth overlap in fewer than 50 sensor samples; "
@@ -273,5 +275,5 @@ def _estimate_offset(sensor, truth, t, max_offset, level) -> Alignment:
                             "cannot be estimated")
     score = np.sum(g_in * r_in * weight, axis=1)
     var = _long_run_variance(score) / hess ** 2
-    half = stats.norm.ppf(0.5 + level / 2) * np.sqrt(var)
+    half = ndtri(0.5 + level / 2) * np.sqrt(var)  # normal quantile
     return Alignment(delta, delta - half, delta + half, coarse, _usable(truth, t, delta))

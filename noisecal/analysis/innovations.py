@@ -21,9 +21,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy.special import ndtri
 
-from .residuals import acf, effective_size, ljung_box
+from .residuals import acf, chi2_ppf, effective_size, ljung_box
 
 
 def normalised_squares(e: np.ndarray, cov: np.ndarray):
@@ -64,7 +64,7 @@ def chi2_band(dof: int, count: float, level: float = 0.95) -> tuple[float, float
     """
     a = (1 - level) / 2
     k = count * dof
-    return float(stats.chi2.ppf(a, k) / count), float(stats.chi2.ppf(1 - a, k) / count)
+    return float(chi2_ppf(a, k) / count), float(chi2_ppf(1 - a, k) / count)
 
 
 @dataclass(frozen=True)
@@ -154,9 +154,9 @@ def chi_square_test(values: list, dof: int, kind: str = "NIS",
     verdict = "above" if mean > hi else "below" if mean < lo else "within"
     a = (1 - level) / 2
     # If values are c * chi2(dof), mean*K*dof/chi2 quantiles bound c.
-    sc = (mean / dof, mean * k / stats.chi2.ppf(1 - a, k * dof),
-          mean * k / stats.chi2.ppf(a, k * dof))
-    gate = float(stats.chi2.ppf(level, dof))
+    sc = (mean / dof, mean * k / chi2_ppf(1 - a, k * dof),
+          mean * k / chi2_ppf(a, k * dof))
+    gate = float(chi2_ppf(level, dof))
     run_band = run_out = None
     if len(values) > 1:
         shortest = min(v.shape[0] for v in values)
@@ -235,7 +235,7 @@ def whiteness(white_runs: list, lags: int, level: float = 0.95) -> Whiteness:
                 if x.shape[0] <= 4096 else _acf_uncentred(x, lags)
             rho[c] += n * (full[1:] / full[0] if full[0] > 0 else 0.0)
     rho /= k
-    z = stats.norm.ppf(0.5 + level / 2)
+    z = ndtri(0.5 + level / 2)  # normal quantile
     band = float(z / np.sqrt(k))
     longest = white_runs[int(np.argmax(lengths))]
     ps = np.array([ljung_box(longest[:, c], lags)[1] for c in range(d)])

@@ -18,7 +18,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy.special import chdtr, chdtrc, gammaincinv
 
 MAD_TO_SIGMA = 1.482602218505602
 """1 / Φ⁻¹(3/4): MAD → σ for Gaussian data (Rousseeuw & Croux 1993)."""
@@ -60,7 +60,7 @@ def ljung_box(r: np.ndarray, lags: int) -> tuple[float, float]:
     n = np.asarray(r).shape[0]
     rho = acf(r, lags)[1:]
     q = float(n * (n + 2) * np.sum(rho ** 2 / (n - np.arange(1, lags + 1))))
-    return q, float(stats.chi2.sf(q, lags))
+    return q, float(chdtrc(lags, q))  # chi-square survival function
 
 
 def effective_size(r: np.ndarray, max_lag: int | None = None) -> float:
@@ -112,6 +112,16 @@ class RobustScatter:
     scatter: np.ndarray
     distances: np.ndarray
     support: np.ndarray
+
+
+def chi2_ppf(p, k):
+    """Quantile ``p`` of the chi-square law with ``k`` degrees of freedom.
+
+    ``2·P⁻¹(k/2, p)`` with P the regularised lower incomplete gamma function, which
+    is what scipy.stats.chi2.ppf computes, from scipy.special: no scipy.stats (a few
+    tenths of a second to import) for a quantile.
+    """
+    return 2.0 * gammaincinv(np.asarray(k, dtype=float) / 2.0, p)
 
 
 def mahalanobis2(x: np.ndarray, loc: np.ndarray, cov: np.ndarray) -> np.ndarray:
@@ -183,9 +193,9 @@ def min_cov_det(x: np.ndarray, support_fraction: float = 0.75, seed: int = 0,
     loc, cov, _ = best
     # Consistency at the Gaussian: the h smallest distances are a truncated chi-square.
     d2 = mahalanobis2(x, loc, cov)
-    cov = cov * np.median(d2) / stats.chi2.ppf(0.5, p)
+    cov = cov * np.median(d2) / chi2_ppf(0.5, p)
     d2 = mahalanobis2(x, loc, cov)
-    keep = d2 <= stats.chi2.ppf(0.975, p)
+    keep = d2 <= chi2_ppf(0.975, p)
     loc = x[keep].mean(axis=0)
     cov = np.cov(x[keep], rowvar=False).reshape(p, p) / truncation_factor(0.975, p)
     return RobustScatter(loc, cov, mahalanobis2(x, loc, cov), keep)
@@ -197,8 +207,8 @@ def truncation_factor(probability: float, p: int) -> float:
     The samples inside the contour χ²_p(probability) have covariance c·Σ with
     c = P(χ²_{p+2} ≤ γ) / P(χ²_p ≤ γ); dividing by c restores Σ.
     """
-    gamma = stats.chi2.ppf(probability, p)
-    return float(stats.chi2.cdf(gamma, p + 2) / probability)
+    gamma = chi2_ppf(probability, p)
+    return float(chdtr(p + 2, gamma) / probability)  # chi-square CDF
 
 
 @dataclass(frozen=True)
@@ -229,6 +239,8 @@ class Shape:
 
 def shape(r: np.ndarray) -> Shape:
     """Normality (Jarque–Bera, Anderson–Darling) and tails (kurtosis, Student-t ν)."""
+    from scipy import stats  # here: the only user of scipy.stats in this module
+
     r = np.asarray(r, dtype=float)
     jb = stats.jarque_bera(r)
     try:

@@ -17,7 +17,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from scipy import stats
+from scipy.special import ndtri
 
 from ..analysis import camera_geometry as geo
 from ..errors import InputError
@@ -233,7 +233,7 @@ def fit_camera(camera, survey, detections, gate_probability: float = GATE_PROBAB
                          f"targets' {name} offsets: the camera's systematic error is poorly "
                          "determined; survey the targets more precisely")
     R_cam[0, 0], R_cam[1, 1] = (sigma[c].value ** 2 for c in ("u", "v"))
-    z = stats.norm.ppf(0.5 + level / 2)
+    z = ndtri(0.5 + level / 2)  # normal quantile
     for i, j in ((0, 1), (1, 0)):
         se = np.sqrt((R_cam[i, j] ** 2 + R_cam[i, i] * R_cam[j, j]) / max(np.min(n_eff) - 1, 1))
         R_lo[i, j], R_hi[i, j] = R_cam[i, j] - z * se, R_cam[i, j] + z * se

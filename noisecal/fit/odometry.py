@@ -26,7 +26,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy import stats
+from scipy.special import ndtri
 
 from ..analysis.align import wrap
 from ..types import Estimate
@@ -183,7 +183,7 @@ def _mean_ratio(err, size, unit, level):
     s = np.sum(err[keep] * size[keep]) / np.sum(size[keep] ** 2)
     resid = err[keep] - s * size[keep]
     se = np.sqrt(np.sum(resid ** 2 * size[keep] ** 2)) / np.sum(size[keep] ** 2)
-    z = stats.norm.ppf(0.5 + level / 2)
+    z = ndtri(0.5 + level / 2)  # normal quantile
     return Estimate(float(s), float(s - z * se), float(s + z * se), unit,
                     "least squares of error on motion, heteroscedastic-robust interval", level)
 

@@ -8,7 +8,7 @@ form. Intervals come from the Fisher information, I = ½ Σ a_i a_iᵀ / v_i².
 from __future__ import annotations
 
 import numpy as np
-from scipy import optimize, stats
+from scipy.special import ndtri
 
 from ..types import Estimate
 
@@ -33,6 +33,8 @@ def fit(e2: np.ndarray, A: np.ndarray, info_scale: float = 1.0,
     theta : ndarray, shape (k,)
     cov : ndarray, shape (k, k)
     """
+    from scipy import optimize  # here, not at import: only the fit uses it
+
     e2 = np.asarray(e2, dtype=float)
     A = np.asarray(A, dtype=float)
     c = np.zeros_like(e2) if known is None else np.asarray(known, dtype=float)
@@ -63,7 +65,7 @@ def fit(e2: np.ndarray, A: np.ndarray, info_scale: float = 1.0,
 def estimates(theta: np.ndarray, cov: np.ndarray, names, units, method: str,
               level: float = 0.95) -> dict:
     """Estimates of θ's components; a bound where the interval reaches zero."""
-    z = stats.norm.ppf(0.5 + level / 2)
+    z = ndtri(0.5 + level / 2)  # normal quantile
     out = {}
     for j, (name, unit) in enumerate(zip(names, units)):
         se = float(np.sqrt(max(cov[j, j], 0.0)))
