@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import atexit
 import os
 import shlex
 import signal
@@ -609,5 +610,30 @@ def _history(args, say) -> int:
     return 0
 
 
+def console() -> None:
+    """The ``noisecal`` command: :func:`main`, then a quick exit.
+
+    When :func:`main` returns every output is written, renamed into place and closed;
+    what a normal interpreter exit would still do is tear down numba's compiler,
+    pyarrow and matplotlib module by module (0.2–0.45 s after a static run, measured).
+    The command flushes its streams, runs the exit handlers (the EDF store among them)
+    and ends there. A run that started Dask (``batch``, ``fleet`` on a cluster) exits
+    normally, so that its cluster shuts down in order.
+    """
+    code = main()
+    if "distributed" in sys.modules or "dask" in sys.modules:
+        sys.exit(code)
+    try:
+        sys.stdout.flush()
+    except (OSError, ValueError):
+        code = EXIT_PIPE if code == 0 else code
+    try:
+        sys.stderr.flush()
+    except (OSError, ValueError):
+        pass
+    atexit._run_exitfuncs()
+    os._exit(code)
+
+
 if __name__ == "__main__":
-    sys.exit(main())
+    console()

@@ -15,8 +15,10 @@ from __future__ import annotations
 
 import functools
 
+import atexit
+import os
+
 import numpy as np
-from scipy import stats
 
 MIN_BLOCKS = 100
 """Fewest cluster averages for the lag-1 method; Riley & Greenhall (2004) name 30 as
@@ -153,6 +155,10 @@ def edf(alpha: int, d: int, m: int, n_phase: int, overlapping: bool, modified: b
 def _edf(alpha: int, d: int, m: int, n_phase: int, overlapping: bool, modified: bool) -> float:
     # Cached: the channels of a recording share their runs and taus, and the dense
     # grids repeat the octave's shortest taus; a few-cluster EDF costs ~1 ms.
+    key = (alpha, d, m, n_phase, overlapping, modified)
+    stored = _STORE.get(key)
+    if stored is not None:
+        return stored
     import allantools
 
     try:
@@ -162,7 +168,90 @@ def _edf(alpha: int, d: int, m: int, n_phase: int, overlapping: bool, modified: 
         value = float("nan")
     if not np.isfinite(value) or value <= 0:
         value = max(1.0, (n_phase - 1) / m - (d - 1))
+    _STORE.put(key, value)
     return value
+
+
+class _EdfStore:
+    """Greenhall–Riley EDFs kept between runs in the cache folder
+    (``edf-v1-allantools-<version>.json``).
+
+    allantools, which computes them, loads scipy.stats and scipy.signal (about 0.5 s
+    of a run); a run on a recording whose run lengths were seen before finds every
+    EDF here and never loads it. The file maps ``alpha,d,m,N,overlapping,modified``
+    to the value as allantools gave it (a pure function of the key); it is read once,
+    written atomically at exit when new values were added, ignored when unreadable,
+    and started afresh beyond ``LIMIT`` entries.
+    """
+
+    LIMIT = 200_000
+
+    def __init__(self):
+        self._values = None
+        self._added = False
+
+    def _path(self):
+        from importlib import metadata
+
+        from ..paths import cache_root
+
+        # Keyed by the allantools release: its algorithm is what the values are.
+        return cache_root() / f"edf-v1-allantools-{metadata.version('allantools')}.json"
+
+    def _load(self) -> dict:
+        if self._values is None:
+            self._values = {}
+            try:
+                import json
+
+                raw = json.loads(self._path().read_text())
+                if isinstance(raw, dict):
+                    self._values = {k: float(v) for k, v in raw.items()
+                                    if isinstance(v, (int, float)) and v > 0}
+            except (OSError, ValueError):
+                pass
+        return self._values
+
+    @staticmethod
+    def _text(key) -> str:
+        return ",".join(str(int(v)) for v in key)
+
+    def get(self, key):
+        if os.environ.get("NOISECAL_NO_EDF_STORE"):
+            return None
+        return self._load().get(self._text(key))
+
+    def put(self, key, value: float) -> None:
+        if os.environ.get("NOISECAL_NO_EDF_STORE"):
+            return
+        values = self._load()
+        if len(values) >= self.LIMIT:
+            values.clear()
+        values[self._text(key)] = float(value)
+        if not self._added:
+            self._added = True
+            atexit.register(self.save)
+
+    def save(self) -> None:
+        """Write the values atomically (a temporary file renamed over the old one)."""
+        if not self._added:
+            return
+        import json
+        import tempfile
+
+        try:
+            path = self._path()
+            path.parent.mkdir(parents=True, exist_ok=True)
+            fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".edf-")
+            with os.fdopen(fd, "w") as fh:
+                json.dump(self._values, fh)
+            os.replace(tmp, path)
+            self._added = False
+        except OSError:
+            pass
+
+
+_STORE = _EdfStore()
 
 
 _TOTVAR_TABLE = {0: (1.50, 0.0), -1: (1.17, 0.22), -2: (0.93, 0.36)}
@@ -315,6 +404,10 @@ def chi2_interval(dev: np.ndarray, nu: np.ndarray, level: float = 0.95) -> tuple
     lower, upper : ndarray, shape (k,)
     """
     a = 1.0 - level
-    lower = dev * np.sqrt(nu / stats.chi2.ppf(1.0 - a / 2.0, nu))
-    upper = dev * np.sqrt(nu / stats.chi2.ppf(a / 2.0, nu))
+    from scipy import special
+
+    # chi2.ppf(q, nu) = 2·gammaincinv(nu/2, q), without loading scipy.stats.
+    nu = np.asarray(nu, dtype=np.float64)
+    lower = dev * np.sqrt(nu / (2.0 * special.gammaincinv(nu / 2.0, 1.0 - a / 2.0)))
+    upper = dev * np.sqrt(nu / (2.0 * special.gammaincinv(nu / 2.0, a / 2.0)))
     return lower, upper

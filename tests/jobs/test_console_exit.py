@@ -1,0 +1,51 @@
+"""The ``noisecal`` command's quick exit keeps every output and exit handler.
+
+``noisecal.cli.console`` ends the process with ``os._exit`` once ``main`` has
+returned (skipping the interpreter's module teardown); the outputs, the exit status,
+the streams and the exit handlers (the EDF store) must be as with a normal exit.
+Common practice, no source.
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import yaml
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def _cli(args, cache):
+    return subprocess.run([sys.executable, "-m", "noisecal.cli", *args], capture_output=True,
+                          text=True, cwd=ROOT, env=dict(os.environ, NOISECAL_CACHE=str(cache)))
+
+
+def test_quick_exit_keeps_outputs_streams_and_exit_handlers(tmp_path):
+    rng = np.random.default_rng(1)
+    n = 4096
+    path = tmp_path / "bench.csv"
+    np.savetxt(path, np.column_stack([np.arange(n) * 0.01, rng.normal(0, 1e-3, n)]),
+               delimiter=",", header="time [s],gyro_x [rad/s]", comments="", fmt="%.9g")
+    out = _cli(["static", str(path), "-o", str(tmp_path / "b.yaml"), "--reps", "40"],
+               tmp_path / "cache")
+    assert out.returncode == 0, out.stderr
+    assert "white_noise" in out.stdout  # the summary reached standard output
+    block = yaml.safe_load((tmp_path / "b.yaml").read_text())
+    assert block["channels"]["gyro_x"]["white_noise"]["value"] > 0
+    assert (tmp_path / "b.png").stat().st_size > 0
+    # The EDF store is written by an exit handler.
+    assert list((tmp_path / "cache").glob("edf-v1-*.json"))
+    piped = _cli(["static", str(path), "-o", "-", "--reps", "40"], tmp_path / "cache")
+    assert piped.returncode == 0 and yaml.safe_load(piped.stdout)["channels"]
+
+
+def test_quick_exit_keeps_the_error_status(tmp_path):
+    out = _cli(["static", str(tmp_path / "missing.csv"), "-o", str(tmp_path / "x.yaml")],
+               tmp_path / "cache")
+    assert out.returncode == 2
+    assert len(out.stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "x.yaml").exists()
