@@ -383,6 +383,26 @@ def _holds(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, s: int, c6: np.ndarr
     return bool(np.all((model >= lo) & (model <= hi)))
 
 
+def band_limited(cols) -> list[tuple[int, ...]]:
+    """The structures among ``cols`` that keep the band-limit column."""
+    return [c for c in cols if 5 in c]
+
+
+def _with_band_limit(A: np.ndarray, avar: np.ndarray, nu: np.ndarray) -> Selection:
+    """The selection among structures with the band-limit column (the curve has shown
+    a low-pass); every structure when none of those keeps the column positive.
+
+    Past the left-out taus the low-pass's deficit is small but not gone: without its
+    column a flat floor can take its place and pull N down. Measured on white noise
+    and a weak random walk through a 2nd-order 5 Hz Butterworth at 100 Hz (150 records
+    of 300 000 samples): with every structure open, 5 records chose white noise and
+    bias instability without the column, N 4.7 % low and outside its interval (N's
+    coverage 92.7 %); with the column kept, 95.3 %.
+    """
+    sel = select_structure(A, avar, nu, candidates=band_limited(structures()))
+    return sel if 5 in sel.cols else select_structure(A, avar, nu)
+
+
 def usable_from(A: np.ndarray, avar: np.ndarray, nu: np.ndarray) -> tuple[int, Selection]:
     """First Allan point from which the term model holds, and the selection there.
 
@@ -422,7 +442,7 @@ def usable_from(A: np.ndarray, avar: np.ndarray, nu: np.ndarray) -> tuple[int, S
             # the low-pass's non-power-law part, too small to see in one point but
             # enough to bias N by its interval's width when points have large EDF.
             s = min(s + 1, k - MIN_POINTS)
-            return s, select_structure(A[s:], avar[s:], nu[s:])
+            return s, _with_band_limit(A[s:], avar[s:], nu[s:])
     # No start makes the model hold at its first points: keep every point and let
     # the model check say so.
     return first
@@ -651,7 +671,11 @@ def fit_terms(curve: AllanCurve, period: float, segments: list[tuple[int, int]],
     lag = 2.0 * sel.c6[5] / sel.c6[1] if sel.c6[5] > 0 else 0.0
     sims = replicate_curves(RateModel(truth, low_pass=lag), lambda t: basis6(t) @ sel.c6,
                             period, curve.m, segments, reps, seed, progress)
-    boot6, dev_rep = select_replicates(A[used], sims[:, used], nu[used], neighbours(sel.cols))
+    near = neighbours(sel.cols)
+    if not used[0] and 5 in sel.cols:
+        # The data's selection kept the band-limit column; so do the replicates'.
+        near = band_limited(near)
+    boot6, dev_rep = select_replicates(A[used], sims[:, used], nu[used], near)
     return TermFit(c2=c2, replicates=signed(boot6), replicate_avar=sims, seed=seed,
                    used=used, selection=sel, deviance=misfit(A[used], avar[used], nu[used], sel.c6),
                    replicate_deviance=dev_rep)

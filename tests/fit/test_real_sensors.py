@@ -189,3 +189,39 @@ def test_filter_block_says_when_dt_meets_the_low_pass():
     far = noisecal.static(rec, reps=40, dt=1.0).block.notes
     assert any("low-pass time constant" in n for n in near)
     assert not any("low-pass time constant" in n for n in far)
+
+
+def _weak_walk_through_butterworth(seed, n=300_000):
+    """White noise (1e-3 rad/s/√Hz) and a weak random walk (2e-5) through scipy's
+    2nd-order 5 Hz Butterworth at 100 Hz."""
+    c2 = np.array([0, 1e-6, 0, 4e-10, 0])
+    y = simulate_rate(c2, PERIOD, n, np.random.default_rng(seed))
+    return low_pass(y, PERIOD, 5.0)
+
+
+def test_band_limit_column_stays_where_a_floor_would_take_its_place():
+    """On this record every structure open picks white noise + bias instability without
+    the band-limit column and N comes out 4.7 % low, outside its interval; with the
+    column kept once the curve has shown its low-pass, the fit keeps N and the random
+    walk. Common practice, no source (the low-pass's deficit does not end where the
+    left-out taus do)."""
+    y = _weak_walk_through_butterworth(5048)
+    terms, curve, fit = fitted(y, reps=100, seed=3)
+    assert not fit.used[0] and 5 in fit.selection.cols
+    assert 2 not in fit.selection.cols
+    n = terms["white_noise"]
+    assert n.lower <= 1e-3 <= n.upper, (n.value, n.lower, n.upper)
+
+
+@pytest.mark.slow
+def test_white_noise_coverage_through_a_butterworth():
+    """Coverage of N's 95 % interval over 150 records of 300 000 samples through the
+    Butterworth (measured 94.0 %; 92.7 % when every structure was open after the
+    left-out taus); 91–98 % accepted (binomial standard error 1.8 %)."""
+    hits = 0
+    for s in range(150):
+        terms, _, _ = fitted(_weak_walk_through_butterworth(5000 + s), reps=200, seed=s)
+        n = terms["white_noise"]
+        hits += n.lower <= 1e-3 <= n.upper
+    print(f"N coverage through a 5 Hz Butterworth: {hits / 150:.3f}")
+    assert 0.91 <= hits / 150 <= 0.98
