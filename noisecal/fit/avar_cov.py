@@ -332,6 +332,14 @@ def avar_covariance(model: NoiseModel, m: np.ndarray, period: float,
                  float(period), white, float(model.k2), float(model.b2), float(model.q2),
                  ramp, parts, _GL[0], _GL[1], float(SHORT), float(FLICKER_EXACT),
                  float(FLICKER_REACH), float(OU_REACH), sums)
+    return _mean_cov(model, m, period, total, ramp, sums)
+
+
+def _mean_cov(model: NoiseModel, m: np.ndarray, period: float, total: np.ndarray,
+              ramp: np.ndarray, sums: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Mean and covariance of the AVAR points from the pair sums (upper triangle of
+    ``sums``), the pooled term counts ``total`` and the ramp's second differences."""
+    k = m.shape[0]
     sums = np.triu(sums) + np.triu(sums, 1).T
     scale = 2.0 * (m * period) ** 2 * np.where(total > 0, total, np.nan)
     cov = sums / np.outer(scale, scale)
@@ -439,13 +447,7 @@ def avar_covariance_reference(model: NoiseModel, m: np.ndarray, period: float,
     sums = np.zeros((k, k))
     np.add.at(sums, (index[:, 0], index[:, 1]),
               2.0 * s2 + 4.0 * ramp[index[:, 0]] * ramp[index[:, 1]] * s1)
-    sums = np.triu(sums) + np.triu(sums, 1).T
-    scale = 2.0 * (m * period) ** 2 * np.where(total > 0, total, np.nan)
-    cov = sums / np.outer(scale, scale)
-    mf = m.astype(np.float64)
-    zero = _c_smooth(model, np.zeros(k), mf, mf, period) + model.q2 * 6.0
-    mean = np.where(total > 0, (zero + ramp ** 2) / (2.0 * (m * period) ** 2), np.nan)
-    return mean, cov
+    return _mean_cov(model, m, period, total, ramp, sums)
 
 
 def correlated_chi2(mean: np.ndarray, cov: np.ndarray, reps: int,
