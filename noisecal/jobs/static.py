@@ -16,7 +16,6 @@ from pathlib import Path
 import numpy as np
 
 from .. import __version__
-from ..analysis.allan import allan_curve
 from ..analysis.psd import white_level
 from ..errors import AnalysisError, InputError
 from ..export import yaml_block
