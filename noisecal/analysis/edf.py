@@ -382,9 +382,36 @@ def pooled_edf(alpha: int, kind: str, m: int, run_lengths: np.ndarray,
     nu : float
         (Σw)² / Σ(w²/ν_i): a weighted mean of independent scaled chi-squares.
     """
-    inv = sum(w * w / estimator_edf(alpha, kind, m, int(n))
-              for n, w in zip(run_lengths, weights))
+    run_lengths = np.asarray(run_lengths, dtype=np.int64)
+    weights = np.asarray(weights, dtype=np.float64)
+    lengths, w2 = _length_groups(run_lengths, weights)
+    inv = sum(v / estimator_edf(alpha, kind, m, int(n)) for n, v in zip(lengths, w2))
     return float(np.sum(weights) ** 2 / inv)
+
+
+MAX_EDF_LENGTHS = 32
+"""Distinct run lengths whose EDFs are computed one by one in :func:`pooled_edf`."""
+
+
+def _length_groups(run_lengths: np.ndarray, weights: np.ndarray):
+    """Run lengths to evaluate and the summed squared weights each stands for.
+
+    A record broken into hundreds of runs of different lengths would need an EDF
+    (about a millisecond each) per length, tau and noise type: 12 s for 600 runs of a
+    400 000-sample record. Beyond ``MAX_EDF_LENGTHS`` distinct lengths the runs are
+    grouped on a ratio-2^(1/8) grid and each group takes the EDF at its
+    weight-averaged length (an EDF grows about in proportion to the run's length,
+    so a 9 % wide group moves the pooled EDF by far less than that).
+    """
+    distinct, inverse = np.unique(run_lengths, return_inverse=True)
+    if distinct.shape[0] <= MAX_EDF_LENGTHS:
+        return distinct, np.bincount(inverse, weights=weights * weights)
+    key = np.floor(8.0 * np.log2(np.maximum(run_lengths, 1))).astype(np.int64)
+    _, group = np.unique(key, return_inverse=True)
+    w2 = np.bincount(group, weights=weights * weights)
+    mean = np.bincount(group, weights=weights * run_lengths) / np.maximum(
+        np.bincount(group, weights=weights), 1e-300)
+    return np.rint(mean).astype(np.int64), w2
 
 
 def chi2_interval(dev: np.ndarray, nu: np.ndarray, level: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
