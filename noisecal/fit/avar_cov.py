@@ -21,18 +21,22 @@ quantization (Q²)       Q² at t = 0, else 0 (white phase)              3Q²/τ
 white noise (N²)        −N²|t|/2 (phase a Brownian motion)             N²/τ
 bias instability (B²)   (B²/2π) t² ln|t| (flicker rate)                (2 ln2/π) B²
 random walk (K²)        K²|t|³/12 (phase an integrated random walk)    K²τ/3
-Gauss–Markov (σ², T)    −σ²T² (e^(−u) − 1 + u − u²/2), u = |t|/T        Annex C form
+AR(1) part (h, C, T)    −h|t| − C (e^(−u) − 1 + u − u²/2), u = |t|/T   see below
 ======================  =============================================  =================
 
-A band-limited white noise (the band-limit column: a one-pole low-pass of
-time constant T_L) is a Gauss–Markov process of σ² = N²/(2T_L), which
-replaces the white row. The expressions reproduce each term's Allan variance
-(c_aa(0)/(2a²τ0²), checked in the tests) and, for one power-law noise, the
-EDF of Greenhall's algorithm (``allantools.edf_greenhall``; tested).
+The AR(1)-shaped parts are the discrete processes the bootstrap simulation makes
+(:meth:`NoiseModel.exponential_parts`): Gauss–Markov point samples of σ² and
+correlation time T (h → σ²T, C → σ²T² for T ≫ τ0, the continuous Annex C form),
+and white noise through the one-pole low-pass of the band-limit column, which
+then replaces the white row. The expressions reproduce each term's Allan
+variance (c_aa(0)/(2a²τ0²), checked in the tests) and, for one power-law noise,
+the EDF of Greenhall's algorithm (``allantools.edf_greenhall``, m ≥ 64; at m = 1
+the exact value is lower, also tested).
 
 White, random walk and quantization give c_ab(l) = 0 outside −2b < l < 2a
 (there every argument has one sign and G is a polynomial); flicker and
-Gauss–Markov leave tails, summed to the record's end. The sums run over the
+Gauss–Markov leave tails, summed to 64(a + b) lags (flicker) or 40 correlation
+times, within the record. The sums run over the
 exact integer lags where pieces are short and by Gauss–Legendre with the
 Euler–Maclaurin end terms where they are long, on pieces split at every kink
 of c (lags p − q) and of n (0 and M_b − M_a). Separate runs of a gapped
