@@ -431,10 +431,8 @@ def chi2_interval(dev: np.ndarray, nu: np.ndarray, level: float = 0.95) -> tuple
     lower, upper : ndarray, shape (k,)
     """
     a = 1.0 - level
-    from scipy import special
+    from .residuals import chi2_ppf
 
-    # chi2.ppf(q, nu) = 2·gammaincinv(nu/2, q), without loading scipy.stats.
-    nu = np.asarray(nu, dtype=np.float64)
-    lower = dev * np.sqrt(nu / (2.0 * special.gammaincinv(nu / 2.0, 1.0 - a / 2.0)))
-    upper = dev * np.sqrt(nu / (2.0 * special.gammaincinv(nu / 2.0, a / 2.0)))
+    lower = dev * np.sqrt(nu / chi2_ppf(1.0 - a / 2.0, nu))
+    upper = dev * np.sqrt(nu / chi2_ppf(a / 2.0, nu))
     return lower, upper

@@ -32,6 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..analysis.allan import deviation
+from ..analysis.residuals import chi2_ppf
 from ..types import AllanCurve, Estimate
 from ..units import derived_unit
 from .simulate import TERM_NAMES, RateModel, basis
@@ -358,14 +359,6 @@ def _instability_for_walk(cols: tuple) -> tuple | None:
     if 3 in cols and 2 not in cols:
         return tuple(sorted(set(cols) - {3} | {2}))
     return None
-
-
-def chi2_ppf(q, nu):
-    """Chi-square quantile (``scipy.stats.chi2.ppf``) through scipy.special, which
-    loads in a fraction of scipy.stats' time."""
-    from scipy import special
-
-    return 2.0 * special.gammaincinv(np.asarray(nu, dtype=np.float64) / 2.0, q)
 
 
 HOLD_LEVEL = 0.99
