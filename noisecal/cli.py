@@ -425,6 +425,14 @@ def main(argv: list[str] | None = None) -> int:
 
 def _run(args, command: str, recorder) -> int:
     """Dispatch one parsed command line; returns the exit status."""
+    from .analysis.edf import edf_store
+
+    with edf_store(not getattr(args, "no_cache", False)):
+        return _dispatch(args, command, recorder)
+
+
+def _dispatch(args, command: str, recorder) -> int:
+    """:func:`_run` once the EDF store follows ``--no-cache``."""
     to_stdout = getattr(args, "output", None) == STDOUT
     # With -o - standard output carries the YAML (or CSV) alone; the rest goes to stderr.
     say = (lambda text: _say(text, True)) if to_stdout else _say

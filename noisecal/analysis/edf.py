@@ -16,6 +16,7 @@ from __future__ import annotations
 import functools
 
 import atexit
+import contextlib
 import os
 
 import numpy as np
@@ -189,6 +190,10 @@ class _EdfStore:
     def __init__(self):
         self._values = None
         self._added = False
+        self.off = False
+
+    def _enabled(self) -> bool:
+        return not (self.off or os.environ.get("NOISECAL_NO_EDF_STORE"))
 
     def _path(self):
         from importlib import metadata
@@ -217,12 +222,12 @@ class _EdfStore:
         return ",".join(str(int(v)) for v in key)
 
     def get(self, key):
-        if os.environ.get("NOISECAL_NO_EDF_STORE"):
+        if not self._enabled():
             return None
         return self._load().get(self._text(key))
 
     def put(self, key, value: float) -> None:
-        if os.environ.get("NOISECAL_NO_EDF_STORE"):
+        if not self._enabled():
             return
         values = self._load()
         if len(values) >= self.LIMIT:
@@ -252,6 +257,18 @@ class _EdfStore:
 
 
 _STORE = _EdfStore()
+
+
+@contextlib.contextmanager
+def edf_store(use: bool):
+    """Within the block, the EDF store is used only if ``use`` (``--no-cache``: the
+    command then neither reads nor writes anything in the cache folder)."""
+    before = _STORE.off
+    _STORE.off = before or not use
+    try:
+        yield
+    finally:
+        _STORE.off = before
 
 
 _TOTVAR_TABLE = {0: (1.50, 0.0), -1: (1.17, 0.22), -2: (0.93, 0.36)}

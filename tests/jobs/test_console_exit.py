@@ -49,3 +49,15 @@ def test_quick_exit_keeps_the_error_status(tmp_path):
     assert out.returncode == 2
     assert len(out.stderr.strip().splitlines()) == 1
     assert not (tmp_path / "x.yaml").exists()
+
+
+def test_no_cache_leaves_the_cache_folder_alone(tmp_path):
+    """--no-cache: neither the recording cache nor the EDF store is written."""
+    rng = np.random.default_rng(2)
+    path = tmp_path / "bench.csv"
+    np.savetxt(path, np.column_stack([np.arange(4096) * 0.01, rng.normal(0, 1e-3, 4096)]),
+               delimiter=",", header="time [s],gyro_x [rad/s]", comments="", fmt="%.9g")
+    out = _cli(["static", str(path), "-o", str(tmp_path / "b.yaml"), "--reps", "40",
+                "--no-cache"], tmp_path / "cache")
+    assert out.returncode == 0, out.stderr
+    assert not (tmp_path / "cache").exists() or not any((tmp_path / "cache").iterdir())
