@@ -6,7 +6,7 @@ STAMP  := $(VENV)/.installed
 
 .PHONY: demo test test-slow demo-data bench clean
 
-$(STAMP): pyproject.toml
+$(STAMP): pyproject.toml $(wildcard noisecal/_native/*.c noisecal/_native/*.h)
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e '.[test,fleet]'

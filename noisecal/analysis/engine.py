@@ -14,7 +14,9 @@ from __future__ import annotations
 
 
 import numpy as np
-from numba import njit
+from .. import _native
+from .._jit import njit
+from .._native import engine_calls
 
 _BLOCK = 4096
 KIND_CODE = {"adev": 0, "oadev": 1, "hdev": 2, "ohdev": 3, "mdev": 4}
@@ -45,6 +47,10 @@ def integrate(y: np.ndarray, period: float) -> np.ndarray:
         full-size temporaries.
     """
     y = np.asarray(y, dtype=np.float64)
+    if _native.enabled():
+        y = np.ascontiguousarray(y)
+        return engine_calls.integrate(y, float(np.mean(y)), float(period),
+                                      np.empty(y.shape[0] + 1))
     return _integrate(y, float(np.mean(y)), float(period), np.empty(y.shape[0] + 1))
 
 

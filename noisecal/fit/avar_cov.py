@@ -523,7 +523,7 @@ def replicate_avar(c2, period: float, m: np.ndarray, segments, reps: int, seed: 
 # ---------------------------------------------------------------------------
 # Compiled path: the same sums, one pair at a time without temporaries.
 
-from numba import njit  # noqa: E402
+from .._jit import njit  # noqa: E402
 
 
 @njit(cache=True, nogil=True)

@@ -18,7 +18,7 @@ Kalman Filtering* (discrete first-order Gauss–Markov).
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from .._jit import njit
 
 from ..types import AllanCurve, Estimate
 from ..units import derived_unit

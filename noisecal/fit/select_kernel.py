@@ -16,7 +16,7 @@ C. L. Lawson, R. J. Hanson, *Solving Least Squares Problems* (1974), ch. 23 (NNL
 from __future__ import annotations
 
 import numpy as np
-from numba import njit
+from .._jit import njit
 
 
 @njit(cache=True, nogil=True)
