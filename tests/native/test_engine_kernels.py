@@ -5,11 +5,11 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from noisecal import _native
 from noisecal.analysis import engine
 
-pytestmark = pytest.mark.skipif(not _native.enabled(),
-                                reason="noisecal's C kernels are not built here")
+from . import requires_native
+
+pytestmark = requires_native
 
 
 def test_integrate_equals_numba_and_cumsum():
