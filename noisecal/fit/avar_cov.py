@@ -62,6 +62,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .. import _native
+from .._native import fit_calls
+
 W = np.array([1.0, -2.0, 1.0])
 """Second-difference weights."""
 
@@ -332,10 +335,11 @@ def avar_covariance(model: NoiseModel, m: np.ndarray, period: float,
     parts = np.array(model.exponential_parts(period), dtype=np.float64).reshape(-1, 3)
     white = 0.5 * model.n2 if model.n2 > 0 and model.low_pass <= 0 else 0.0
     sums = np.zeros((k, k))
-    _sums_kernel(m.astype(np.float64), runs.astype(np.float64), mult.astype(np.float64),
-                 float(period), white, float(model.k2), float(model.b2), float(model.q2),
-                 ramp, parts, _GL[0], _GL[1], float(SHORT), float(FLICKER_EXACT),
-                 float(FLICKER_REACH), float(OU_REACH), sums)
+    kernel = fit_calls.sums_kernel if _native.enabled() else _sums_kernel
+    kernel(m.astype(np.float64), runs.astype(np.float64), mult.astype(np.float64),
+           float(period), white, float(model.k2), float(model.b2), float(model.q2),
+           ramp, parts, _GL[0], _GL[1], float(SHORT), float(FLICKER_EXACT),
+           float(FLICKER_REACH), float(OU_REACH), sums)
     return _mean_cov(model, m, period, total, ramp, sums)
 
 

@@ -18,7 +18,10 @@ Kalman Filtering* (discrete first-order Gauss–Markov).
 from __future__ import annotations
 
 import numpy as np
+
+from .. import _native
 from .._jit import njit
+from .._native import fit_calls
 
 from ..types import AllanCurve, Estimate
 from ..units import derived_unit
@@ -195,9 +198,10 @@ def _fit_many(taus: np.ndarray, sims: np.ndarray, nu: np.ndarray,
     """
     gm_cols = np.array([np.concatenate([[T], gm_avar(taus, 1.0, T)]) for T in grid])
     out = np.empty((sims.shape[0], 2))
-    return _fit_many_kernel(np.ascontiguousarray(basis(taus)[:, :2]), gm_cols,
-                            np.ascontiguousarray(sims, dtype=np.float64),
-                            np.asarray(nu, dtype=np.float64), out)
+    kernel = fit_calls.gm_fit_many if _native.enabled() else _fit_many_kernel
+    return kernel(np.ascontiguousarray(basis(taus)[:, :2]), gm_cols,
+                  np.ascontiguousarray(sims, dtype=np.float64),
+                  np.asarray(nu, dtype=np.float64), out)
 
 
 def fit_gauss_markov(curve: AllanCurve, period: float, segments: list[tuple[int, int]],

@@ -31,6 +31,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .. import _native
+from .._native import fit_calls
 from ..analysis.allan import deviation
 from ..analysis.residuals import chi2_ppf
 from ..types import AllanCurve, Estimate
@@ -61,7 +63,10 @@ def weighted_nnls(A: np.ndarray, avar: np.ndarray, nu: np.ndarray,
     -------
     c : ndarray, shape (p,)
     """
-    from .select_kernel import weighted_nnls as compiled
+    if _native.enabled():
+        compiled = fit_calls.weighted_nnls
+    else:
+        from .select_kernel import weighted_nnls as compiled
 
     c = np.zeros(A.shape[1])
     compiled(np.ascontiguousarray(A, dtype=np.float64),
@@ -692,7 +697,10 @@ def select_replicates(A: np.ndarray, sims: np.ndarray, nu: np.ndarray,
     c6 : ndarray, shape (reps, 6)
     deviance : ndarray, shape (reps,)
     """
-    from .select_kernel import select_many
+    if _native.enabled():
+        select_many = fit_calls.select_many
+    else:
+        from .select_kernel import select_many
 
     cands = np.zeros((len(candidates), 6), dtype=bool)
     for i, cols in enumerate(candidates):
