@@ -15,8 +15,9 @@ import noisecal.fit.ieee952 as F
 from noisecal import _native
 from noisecal.fit import select_kernel as SK
 
-pytestmark = pytest.mark.skipif(not _native.enabled(),
-                                reason="noisecal's C kernels are not built here")
+from . import requires_native
+
+pytestmark = requires_native
 
 PERIOD = 0.01
 
