@@ -6,7 +6,7 @@ W. J. Riley, C. A. Greenhall, "Power law noise identification using the lag 1
 autocorrelation", 18th European Frequency and Time Forum (2004).
 C. A. Greenhall, W. J. Riley, "Uncertainty of stability variances based on
 finite differences", 35th PTTI Meeting (2003) — computed by
-``allantools.edf_greenhall``.
+:mod:`noisecal.analysis.greenhall` (tested against ``allantools.edf_greenhall``).
 NIST SP 1065 (2008), section 5.3: chi-square confidence intervals; section 5.6 and
 Table 7: few-cluster noise identification and the total variance EDF.
 """
@@ -15,11 +15,9 @@ from __future__ import annotations
 
 import functools
 
-import atexit
-import contextlib
-import os
-
 import numpy as np
+
+from .greenhall import edf_greenhall
 
 MIN_BLOCKS = 100
 """Fewest cluster averages for the lag-1 method; Riley & Greenhall (2004) name 30 as
@@ -102,14 +100,15 @@ def noise_id_lag1_reference(y: np.ndarray, m: int, dmax: int = 2) -> int | None:
 
 
 ALPHA_MIN_EDF = -3
-"""Lowest alpha the Greenhall–Riley coefficient table covers (allantools'
-``greenhall_table2`` stops at alpha = -3, flicker walk FM); Hadamard random run
-(alpha = -4) is given the alpha = -3 EDF."""
+"""Lowest alpha an EDF is taken at: flicker walk FM. The Greenhall–Riley algorithm also
+covers random-run FM (alpha = -4, d = 3; :mod:`noisecal.analysis.greenhall` computes it),
+but a Hadamard point identified as -4 keeps the -3 EDF, as before: taking -4 would
+change the Hadamard intervals, and the coverage tests were run with -3."""
 
 
 def clamp_alpha(alpha: int, d: int) -> int:
-    """Keep alpha where the d-th difference variance converges (alpha + 2d > 1) and the
-    Greenhall–Riley algorithm has coefficients (alpha >= -3)."""
+    """Keep alpha where the d-th difference variance converges (alpha + 2d > 1), at
+    most 2 and at least ``ALPHA_MIN_EDF``."""
     # Plain min/max: np.clip on a scalar costs ~10 µs, and this runs per tau and type.
     return int(min(max(int(alpha), max(2 - 2 * int(d), ALPHA_MIN_EDF)), 2))
 
@@ -125,9 +124,9 @@ def candidate_alphas(d: int) -> np.ndarray:
     Returns
     -------
     alphas : ndarray of int, shape (k,)
-        White PM (2) down to the lowest exponent at which the estimator converges
-        and the Greenhall–Riley coefficients exist: −2 (random-walk FM) for Allan
-        forms, −3 (flicker walk FM) for Hadamard forms.
+        White PM (2) down to the lowest exponent at which the estimator converges,
+        at least ``ALPHA_MIN_EDF``: −2 (random-walk FM) for Allan forms, −3 (flicker
+        walk FM) for Hadamard forms.
     """
     return np.arange(2, max(2 - 2 * d, ALPHA_MIN_EDF) - 1, -1)
 
@@ -155,120 +154,14 @@ def edf(alpha: int, d: int, m: int, n_phase: int, overlapping: bool, modified: b
 @functools.lru_cache(maxsize=1 << 14)
 def _edf(alpha: int, d: int, m: int, n_phase: int, overlapping: bool, modified: bool) -> float:
     # Cached: the channels of a recording share their runs and taus, and the dense
-    # grids repeat the octave's shortest taus; a few-cluster EDF costs ~1 ms.
-    key = (alpha, d, m, n_phase, overlapping, modified)
-    stored = _STORE.get(key)
-    if stored is not None:
-        return stored
-    import allantools
-
+    # grids repeat the octave's shortest taus (an EDF costs 10-40 µs).
     try:
-        value = float(allantools.edf_greenhall(alpha=alpha, d=d, m=m, N=n_phase,
-                                               overlapping=overlapping, modified=modified))
-    except Exception:  # outside the algorithm's cases: fall back to the term count
+        value = edf_greenhall(alpha, d, m, n_phase, overlapping, modified)
+    except ValueError:  # a run shorter than one term: fall back to the term count
         value = float("nan")
     if not np.isfinite(value) or value <= 0:
         value = max(1.0, (n_phase - 1) / m - (d - 1))
-    _STORE.put(key, value)
     return value
-
-
-class _EdfStore:
-    """Greenhall–Riley EDFs kept between runs in the cache folder
-    (``edf-v1-allantools-<version>.json``).
-
-    allantools, which computes them, loads scipy.stats and scipy.signal (about 0.5 s
-    of a run); a run on a recording whose run lengths were seen before finds every
-    EDF here and never loads it. The file maps ``alpha,d,m,N,overlapping,modified``
-    to the value as allantools gave it (a pure function of the key); it is read once,
-    written atomically at exit when new values were added, ignored when unreadable,
-    and started afresh beyond ``LIMIT`` entries.
-    """
-
-    LIMIT = 200_000
-
-    def __init__(self):
-        self._values = None
-        self._added = False
-        self.off = False
-
-    def _enabled(self) -> bool:
-        return not (self.off or os.environ.get("NOISECAL_NO_EDF_STORE"))
-
-    def _path(self):
-        from importlib import metadata
-
-        from ..paths import cache_root
-
-        # Keyed by the allantools release: its algorithm is what the values are.
-        return cache_root() / f"edf-v1-allantools-{metadata.version('allantools')}.json"
-
-    def _load(self) -> dict:
-        if self._values is None:
-            self._values = {}
-            try:
-                import json
-
-                raw = json.loads(self._path().read_text())
-                if isinstance(raw, dict):
-                    self._values = {k: float(v) for k, v in raw.items()
-                                    if isinstance(v, (int, float)) and v > 0}
-            except (OSError, ValueError):
-                pass
-        return self._values
-
-    @staticmethod
-    def _text(key) -> str:
-        return ",".join(str(int(v)) for v in key)
-
-    def get(self, key):
-        if not self._enabled():
-            return None
-        return self._load().get(self._text(key))
-
-    def put(self, key, value: float) -> None:
-        if not self._enabled():
-            return
-        values = self._load()
-        if len(values) >= self.LIMIT:
-            values.clear()
-        values[self._text(key)] = float(value)
-        if not self._added:
-            self._added = True
-            atexit.register(self.save)
-
-    def save(self) -> None:
-        """Write the values atomically (a temporary file renamed over the old one)."""
-        if not self._added:
-            return
-        import json
-        import tempfile
-
-        try:
-            path = self._path()
-            path.parent.mkdir(parents=True, exist_ok=True)
-            fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=".edf-")
-            with os.fdopen(fd, "w") as fh:
-                json.dump(self._values, fh)
-            os.replace(tmp, path)
-            self._added = False
-        except OSError:
-            pass
-
-
-_STORE = _EdfStore()
-
-
-@contextlib.contextmanager
-def edf_store(use: bool):
-    """Within the block, the EDF store is used only if ``use`` (``--no-cache``: the
-    command then neither reads nor writes anything in the cache folder)."""
-    before = _STORE.off
-    _STORE.off = before or not use
-    try:
-        yield
-    finally:
-        _STORE.off = before
 
 
 _TOTVAR_TABLE = {0: (1.50, 0.0), -1: (1.17, 0.22), -2: (0.93, 0.36)}
@@ -413,9 +306,10 @@ MAX_EDF_LENGTHS = 32
 def _length_groups(run_lengths: np.ndarray, weights: np.ndarray):
     """Run lengths to evaluate and the summed squared weights each stands for.
 
-    A record broken into hundreds of runs of different lengths would need an EDF
-    (about a millisecond each) per length, tau and noise type: 12 s for 600 runs of a
-    400 000-sample record. Beyond ``MAX_EDF_LENGTHS`` distinct lengths the runs are
+    A record broken into hundreds of runs of different lengths would need an EDF per
+    length, tau and noise type: about 65 000 for 600 runs of a 400 000-sample record
+    (12 s at a millisecond each as allantools computed them, over a second still at
+    10-40 µs). Beyond ``MAX_EDF_LENGTHS`` distinct lengths the runs are
     grouped on a ratio-2^(1/8) grid and each group takes the EDF at its
     weight-averaged length (an EDF grows about in proportion to the run's length,
     so a 9 % wide group moves the pooled EDF by far less than that).

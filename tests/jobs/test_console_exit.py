@@ -2,7 +2,7 @@
 
 ``noisecal.cli.console`` ends the process with ``os._exit`` once ``main`` has
 returned (skipping the interpreter's module teardown); the outputs, the exit status,
-the streams and the exit handlers (the EDF store) must be as with a normal exit.
+the streams and the exit handlers must be as with a normal exit.
 Common practice, no source.
 """
 
@@ -37,8 +37,18 @@ def test_quick_exit_keeps_outputs_streams_and_exit_handlers(tmp_path):
     block = yaml.safe_load((tmp_path / "b.yaml").read_text())
     assert block["channels"]["gyro_x"]["white_noise"]["value"] > 0
     assert (tmp_path / "b.png").stat().st_size > 0
-    # The EDF store is written by an exit handler.
-    assert list((tmp_path / "cache").glob("edf-v1-*.json"))
+    # An exit handler registered in the process still runs.
+    marker = tmp_path / "handler-ran"
+    code = ("import atexit, sys\n"
+            f"atexit.register(lambda: open({str(marker)!r}, 'w').close())\n"
+            "from noisecal.cli import console\n"
+            f"sys.argv = ['noisecal', 'static', {str(path)!r}, '-o', "
+            f"{str(tmp_path / 'c.yaml')!r}, '--reps', '40']\n"
+            "console()\n")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          cwd=ROOT, env=dict(os.environ, NOISECAL_CACHE=str(tmp_path / "cache")))
+    assert done.returncode == 0, done.stderr
+    assert marker.exists()
     piped = _cli(["static", str(path), "-o", "-", "--reps", "40"], tmp_path / "cache")
     assert piped.returncode == 0 and yaml.safe_load(piped.stdout)["channels"]
 
@@ -52,7 +62,7 @@ def test_quick_exit_keeps_the_error_status(tmp_path):
 
 
 def test_no_cache_leaves_the_cache_folder_alone(tmp_path):
-    """--no-cache: neither the recording cache nor the EDF store is written."""
+    """--no-cache: nothing is written in the cache folder."""
     rng = np.random.default_rng(2)
     path = tmp_path / "bench.csv"
     np.savetxt(path, np.column_stack([np.arange(4096) * 0.01, rng.normal(0, 1e-3, 4096)]),
