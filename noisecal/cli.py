@@ -425,14 +425,6 @@ def main(argv: list[str] | None = None) -> int:
 
 def _run(args, command: str, recorder) -> int:
     """Dispatch one parsed command line; returns the exit status."""
-    from .analysis.edf import edf_store
-
-    with edf_store(not getattr(args, "no_cache", False)):
-        return _dispatch(args, command, recorder)
-
-
-def _dispatch(args, command: str, recorder) -> int:
-    """:func:`_run` once the EDF store follows ``--no-cache``."""
     to_stdout = getattr(args, "output", None) == STDOUT
     # With -o - standard output carries the YAML (or CSV) alone; the rest goes to stderr.
     say = (lambda text: _say(text, True)) if to_stdout else _say
@@ -624,9 +616,9 @@ def console() -> None:
     When :func:`main` returns every output is written, renamed into place and closed;
     what a normal interpreter exit would still do is tear down numba's compiler,
     pyarrow and matplotlib module by module (0.2–0.45 s after a static run, measured).
-    The command flushes its streams, runs the exit handlers (the EDF store among them)
-    and ends there. A run that started Dask (``batch``, ``fleet`` on a cluster) exits
-    normally, so that its cluster shuts down in order.
+    The command flushes its streams, runs the exit handlers and ends there. A run that
+    started Dask (``batch``, ``fleet`` on a cluster) exits normally, so that its cluster
+    shuts down in order.
     """
     code = main()
     if "distributed" in sys.modules or "dask" in sys.modules:
