@@ -1,15 +1,19 @@
 """Allan deviation plots: data with intervals, each fitted term, the total model.
 
-Drawn on a bare ``matplotlib.figure.Figure`` with the Agg canvas (pyplot and
-its backend machinery are not imported), with what the eye needs and few
-artists: one shared legend for the line styles, the term values as one text
-block under each panel, major grid lines only, and a fixed layout instead of
-``tight_layout`` (which draws the figure once more to measure it). Measured on
-six channels against the first version in the same process: about 3x faster.
-Then: tick labels in plain text (mathtext's parser was a third of a fresh
-process's drawing time), only the ticks that show, the term values by their
-letters (glyphs are most of the drawing), unhinted text and an RGB PNG without
-Pillow's filter search (:func:`_write_png`).
+The static job's figure (:func:`allan_figure`, and the HTML report's one-panel
+version) is drawn without matplotlib, on the small Pillow canvas of
+:mod:`noisecal.export.raster`: in a fresh process matplotlib cost about 0.6 s of
+a 1.7 s warm static run (importing it, building the axes, drawing), the new
+drawing about 0.05 s. It keeps what the matplotlib figure showed, in the same
+colours, line styles (matplotlib's dash patterns) and pixel size: per channel a
+log–log panel with the dense overlapping ADEV and its 95 % band, the
+overlapping Hadamard deviation, the fitted points with their interval bars
+(hollow where left out of the fit, over a shaded span), each term dashed (dotted
+at its upper bound when not resolved), the total model, decade ticks labelled
+in plain text (``10⁻³``), major grid lines, the term values by their letters
+under the panel and the red note of a failed model check; one legend of the
+line styles for the figure. The re-check figure stays on matplotlib
+(:func:`recheck_figure`, on a bare ``Figure`` with the Agg canvas: no pyplot).
 """
 
 from __future__ import annotations
@@ -28,69 +32,21 @@ _LABEL = {"quantization": "quantization Q", "white_noise": "white noise N",
 _SYMBOL = {name: label.split()[-1] for name, label in _LABEL.items()}
 _COLOR = {"quantization": "#8c564b", "white_noise": "#1f77b4", "bias_instability": "#2ca02c",
           "bias_random_walk": "#d62728", "rate_ramp": "#9467bd"}
+MODEL_COLOR = "#ff7f0e"
+LEFT_OUT_COLOR = "#fde9c9"
+WARNING_COLOR = "#c00000"
+DPI = 110
 
 
 def _figure(width: float, height: float, dpi: float | None = None):
-    """A Figure on the Agg canvas, without pyplot (no global figure registry to clean).
-
-    ``dpi`` is the resolution :func:`_write_png` writes at (default matplotlib's).
-    """
+    """A matplotlib Figure on the Agg canvas, without pyplot (no global figure
+    registry to clean); for the figures still drawn with matplotlib."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
     fig = Figure(figsize=(width, height), dpi=dpi)
     FigureCanvasAgg(fig)
     return fig
-
-
-def _write_png(fig, target, level: int = 3) -> None:
-    """Draw ``fig`` at its own dpi and write it as an 8-bit RGB PNG.
-
-    Two costs of the usual path are left out, each measured on the six-channel
-    Allan figure: FreeType's hinting of every glyph (a sixth of the instructions;
-    the text is drawn unhinted, a little softer) and Pillow's per-row filter search
-    (the figure is opaque line art: unfiltered rows at zlib level 3 compress as
-    well, in half the time, ~0.02 s). The file is plain PNG (ISO/IEC 15948: IHDR
-    with the size, pHYs with the dpi, one IDAT, IEND).
-
-    Parameters
-    ----------
-    fig : matplotlib.figure.Figure
-        A figure on the Agg canvas.
-    target : path or binary file object
-    level : int
-        zlib compression level.
-    """
-    import struct
-    import zlib
-
-    import matplotlib
-    from PIL import Image
-
-    with matplotlib.rc_context({"text.hinting": "no_hinting"}):
-        fig.canvas.draw()
-    rgba = fig.canvas.buffer_rgba()
-    h, w = np.asarray(rgba).shape[:2]
-    # Pillow drops the alpha channel several times faster than a strided numpy copy.
-    rgb = Image.frombuffer("RGBA", (w, h), rgba, "raw", "RGBA", 0, 1)
-    rows = np.zeros((h, 1 + 3 * w), dtype=np.uint8)  # each row: filter type 0, then RGB
-    rows[:, 1:] = np.frombuffer(rgb.convert("RGB").tobytes(), dtype=np.uint8).reshape(h, 3 * w)
-
-    def chunk(tag: bytes, data: bytes) -> bytes:
-        return (struct.pack(">I", len(data)) + tag + data
-                + struct.pack(">I", zlib.crc32(tag + data)))
-
-    per_metre = round(fig.dpi / 0.0254)
-    png = b"".join([b"\x89PNG\r\n\x1a\n",
-                    chunk(b"IHDR", struct.pack(">IIBBBBB", w, h, 8, 2, 0, 0, 0)),
-                    chunk(b"pHYs", struct.pack(">IIB", per_metre, per_metre, 1)),
-                    chunk(b"IDAT", zlib.compress(rows.tobytes(), level)),
-                    chunk(b"IEND", b"")])
-    if hasattr(target, "write"):
-        target.write(png)
-    else:
-        with open(target, "wb") as fh:
-            fh.write(png)
 
 
 def _fmt(e) -> str:
@@ -103,11 +59,7 @@ _SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
 
 
 def _decade(value: float, _pos=None) -> str:
-    """A log-axis tick label in plain text: ``10⁻³``, or ``2×10⁻⁶`` off a decade.
-
-    matplotlib's default label is mathtext, whose parser took about a third of the
-    six-channel figure's drawing time in a fresh process.
-    """
+    """A log-axis tick label in plain text: ``10⁻³``, or ``2×10⁻⁶`` off a decade."""
     if not value > 0:
         return ""
     exp = int(np.floor(np.log10(value) + 1e-9))
@@ -116,129 +68,272 @@ def _decade(value: float, _pos=None) -> str:
     return power if abs(mantissa - 1.0) < 1e-9 else f"{mantissa:.3g}×{power}"
 
 
-LOG_AXES = {"xscale": "log", "yscale": "log"}
-"""``subplot_kw`` for Allan panels: axes made log-log at once (setting the scales
-afterwards builds and throws away a linear axis's ticks)."""
-
-
-def _log_ticks(lo: float, hi: float, subs: tuple, most: int = 0) -> np.ndarray:
-    """Positions ``m·10^k`` (``m`` in ``subs``) inside ``[lo, hi]``, ascending.
-
-    With ``most``, every other decade (or sparser) when more than ``most`` would
-    show, as matplotlib's own log locator does.
-    """
+def _log_ticks(lo: float, hi: float, subs: tuple) -> np.ndarray:
+    """Positions ``m·10^k`` (``m`` in ``subs``) inside ``[lo, hi]``, ascending."""
     k = np.arange(np.floor(np.log10(lo)), np.ceil(np.log10(hi)) + 1.0)
     v = (np.asarray(subs, dtype=float)[:, None] * 10.0 ** k).ravel()
-    v = np.sort(v[(v >= lo * (1.0 - 1e-9)) & (v <= hi * (1.0 + 1e-9))])
-    if most and v.shape[0] > most:
-        v = v[::-(-v.shape[0] // most)]
-    return v
+    return np.sort(v[(v >= lo * (1.0 - 1e-9)) & (v <= hi * (1.0 + 1e-9))])
 
 
-def _log_axes(ax, x: tuple, y: tuple) -> None:
-    """Limits and ticks of a log–log panel: decades labelled, 2 and 5 marked on y.
+def _decade_ticks(lo: float, hi: float, most: int = 9) -> np.ndarray:
+    """Decades inside ``[lo, hi]``, at most ``most`` of them, chosen as matplotlib's
+    ``LogLocator(numticks=most)`` chooses them: all when they fit, else every
+    ``stride``-th decade, the stride the smallest that fits and the ticks on its
+    multiples (so 10⁰ keeps its label) when that gives as many ticks."""
+    emin = int(np.ceil(np.log10(lo) - 1e-9))
+    emax = int(np.floor(np.log10(hi) + 1e-9))
+    n = emax - emin + 1
+    if n <= 0:
+        return np.empty(0)
+    stride = n // (most + 1) + 1
+    want = min(-(-n // stride), most)
+    if want == 1:
+        return np.array([10.0 ** emin])
+    stride = (n - 1) // (want - 1)
+    if stride < n / want:
+        stride = n // want
+    olo, ohi = max(n - stride * want, 0), min(n - stride * (want - 1), stride)
+    offset = (-emin) % stride
+    if not olo <= offset < ohi:
+        offset = olo
+    return 10.0 ** np.arange(emin + offset, emax + 1, stride, dtype=float)
 
-    Every tick is a handful of artists and most of the axes' drawing time. The
-    positions are fixed from the limits, so only ticks that show are made (the
-    log locator also makes one beyond each end), none minor on the long tau axis.
+
+def _ticks(x: tuple, y: tuple) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Tick positions of an Allan panel with limits ``x`` and ``y``: decades on both
+    axes (every other one or sparser when more than nine show), unlabelled 2 and 5
+    on y where every decade is ticked, and 2 and 5 labelled too when less than a
+    decade of y shows (or the axis would have no number); as matplotlib's log
+    locator places them. None minor on the long tau axis: they were clutter.
+
+    Returns
+    -------
+    xmajor, ymajor, yminor : ndarray
+        Data values, ascending.
     """
-    from matplotlib.ticker import FixedLocator, FuncFormatter, NullFormatter, NullLocator
-
-    ax.set_xlim(*x)
-    ax.set_ylim(*y)
-    xmajor = _log_ticks(*x, (1.0,), most=9)
-    ymajor = _log_ticks(*y, (1.0,), most=9)
+    xmajor = _decade_ticks(*x)
+    ymajor = _decade_ticks(*y)
     yminor = _log_ticks(*y, (2.0, 5.0))
     if ymajor.shape[0] < 2:
-        # Less than a decade shown: label 2 and 5 too, or the axis has no number.
         ymajor, yminor = _log_ticks(*y, (1.0, 2.0, 5.0)), yminor[:0]
-    ax.xaxis.set_major_locator(FixedLocator(xmajor))
-    ax.xaxis.set_minor_locator(NullLocator())
-    ax.yaxis.set_major_locator(FixedLocator(ymajor))
-    ax.yaxis.set_minor_locator(FixedLocator(yminor))
-    ax.xaxis.set_major_formatter(FuncFormatter(_decade))
-    ax.yaxis.set_major_formatter(FuncFormatter(_decade))
-    ax.yaxis.set_minor_formatter(NullFormatter())
+    elif ymajor.shape[0] < _log_ticks(*y, (1.0,)).shape[0]:
+        yminor = yminor[:0]  # decades skipped: minor ticks would read as decades
+    return xmajor, ymajor, yminor
 
 
-def _panel(ax, model: ChannelModel, dense: AllanCurve, hadamard: AllanCurve) -> None:
-    if ax.get_xscale() != "log":
-        ax.set_xscale("log")
-    if ax.get_yscale() != "log":
-        ax.set_yscale("log")
-    ax.fill_between(dense.taus, dense.lower, dense.upper, color="0.8", lw=0)
-    ax.plot(dense.taus, dense.dev, color="k", lw=1.2)
-    ax.plot(hadamard.taus, hadamard.dev, color="0.45", lw=0.8, ls="-.")
+def _limits(lo: float, hi: float) -> tuple[float, float]:
+    """Positive limits low < high: a single value or a bad one opens to a decade
+    around what is there."""
+    if not (np.isfinite(lo) and np.isfinite(hi) and 0 < lo < hi):
+        mid = hi if np.isfinite(hi) and hi > 0 else (lo if np.isfinite(lo) and lo > 0 else 1.0)
+        lo, hi = mid / 10 ** 0.5, mid * 10 ** 0.5
+    return float(lo), float(hi)
+
+
+def _panel(canvas, box: tuple, model: ChannelModel, dense: AllanCurve,
+           hadamard: AllanCurve) -> None:
+    """One channel's Allan panel on ``canvas`` with its data area at ``box``
+    (left, top, right, bottom, final px), its labels and term values."""
+    from .raster import LogAxes
+
+    x = _limits(float(dense.taus[0]), float(dense.taus[-1]))
+    y = _limits(float(np.nanmin(dense.lower)) / 3.0, float(np.nanmax(dense.upper)) * 3.0)
+    ax = LogAxes(canvas, box, x, y)
     fit = model.curve
-    used = (model.fit.used if model.fit is not None
+    used = (np.asarray(model.fit.used, dtype=bool) if model.fit is not None
             else np.ones(fit.taus.shape[0], dtype=bool))
-    start = float(fit.taus[used][0])
+    start = float(fit.taus[used][0]) if used.any() else float(fit.taus[0])
     if not used.all():
         # Taus left out of the fit (the sensor's low-pass): shaded and named.
-        ax.axvspan(dense.taus[0], start / 1.2, color="#fde9c9", lw=0, zorder=0)
+        ax.axvspan(dense.taus[0], start / 1.2, LEFT_OUT_COLOR)
         above = model.check is not None and any(side == "above"
                                                 for _, side in model.check.left_out)
         why = "the terms do not hold here" if above else "sensor's low-pass"
-        ax.text(0.01, 0.02, f"left out of the fit:\n{why}", fontsize=6.5,
-                transform=ax.transAxes, va="bottom", ha="left", color="#a0522d")
-    # Interval bars as one collection and points as one line: errorbar makes three
-    # artists per call and caps the eye does not need.
-    ax.vlines(fit.taus, fit.lower, fit.upper, color="k", lw=0.8)
-    ax.plot(fit.taus[used], fit.dev[used], "o", ms=3, color="k")
-    ax.plot(fit.taus[~used], fit.dev[~used], "o", ms=3, mfc="white", color="k")
+        ax.text(0.01, 0.02, f"left out of the fit:\n{why}", 6.5, "#a0522d", va="bottom")
+    ax.fill_between(dense.taus, dense.lower, dense.upper, "0.8")
+    xmajor, ymajor, yminor = _ticks(x, y)
+    ax.grid(xmajor, ymajor)
+    ax.plot(dense.taus, dense.dev, "k", 1.2)
+    ax.plot(hadamard.taus, hadamard.dev, "0.45", 0.8, "-.")
+    ax.vlines(fit.taus, fit.lower, fit.upper, "k", 0.8)
+    ax.markers(fit.taus[used], fit.dev[used], 3.0, "k")
+    ax.markers(fit.taus[~used], fit.dev[~used], 3.0, "k", face="white")
     t = np.logspace(np.log10(start), np.log10(dense.taus[-1]), 200)
     A = basis(t)
     lines = []
     for i, name in enumerate(TERM_NAMES):
         est = model.terms[name]
-        if est.resolved:
-            ax.plot(t, np.sqrt(A[:, i] * model.coefficients[i]), "--", color=_COLOR[name],
-                    lw=1.2)
-        else:
-            ax.plot(t, np.sqrt(A[:, i] * est.upper ** 2), ":", color=_COLOR[name], lw=0.9,
-                    alpha=0.6)
-        # The term's letter: the shared legend names it (glyphs are most of the drawing).
+        with np.errstate(invalid="ignore"):
+            if est.resolved:
+                ax.plot(t, np.sqrt(A[:, i] * model.coefficients[i]), _COLOR[name], 1.2, "--")
+            else:
+                ax.plot(t, np.sqrt(A[:, i] * est.upper ** 2), _COLOR[name], 0.9, ":",
+                        alpha=0.6)
+        # The term's letter: the shared legend names it.
         lines.append(f"{_SYMBOL[name]}: {_fmt(est)}")
-    ax.plot(t, np.sqrt(A @ model.coefficients), color="#ff7f0e", lw=1.6)
-    lo, hi = np.nanmin(dense.lower), np.nanmax(dense.upper)
-    _log_axes(ax, (dense.taus[0], dense.taus[-1]), (lo / 3.0, hi * 3.0))
+    with np.errstate(invalid="ignore"):
+        ax.plot(t, np.sqrt(A @ model.coefficients), MODEL_COLOR, 1.6)
+    ax.finish()
+    ax.ticks(xmajor, ymajor, [_decade(v) for v in xmajor], [_decade(v) for v in ymajor],
+             minor_ys=yminor)
     if model.check is not None and not model.check.consistent:
         ax.text(0.99, 0.98, "model check: NOT consistent\n" + model.check.cause[:60] + "…",
-                transform=ax.transAxes, va="top", ha="right", fontsize=6.5, color="#c00000")
-    # A fixed title height: the automatic one measures every tick label first.
-    ax.set_title(f"{model.channel}", y=1.01)
-    ax.set_xlabel("averaging time τ [s]")
-    ax.set_ylabel(f"Allan deviation [{model.unit}]")
-    ax.grid(True, which="major", alpha=0.3)
-    ax.text(0.0, -0.16, "\n".join(lines), transform=ax.transAxes, va="top", ha="left",
-            fontsize=6.5, linespacing=1.5)
+                6.5, WARNING_COLOR, ha="right", va="top")
+    ax.title(f"{model.channel}", 12.0)
+    ax.xlabel("averaging time τ [s]")
+    ax.ylabel(f"Allan deviation [{model.unit}]")
+    ax.text(0.0, -0.16, "\n".join(lines), 6.5, va="top", linespacing=1.5)
 
 
-def _style_legend(fig) -> None:
-    """One legend for the whole figure: what each line style means."""
-    from matplotlib.lines import Line2D
-    from matplotlib.patches import Patch
+def _legend_entries() -> list[tuple]:
+    """What each line style means: ``(label, kind, colour, width pt, style, marker)``
+    with kind "patch" or "line" and marker None, "filled" (with its interval bar)
+    or "hollow"."""
+    entries = [("95 % interval", "patch", "0.8", 0.0, "-", None),
+               ("overlapping ADEV", "line", "k", 1.2, "-", None),
+               ("overlapping Hadamard dev. (ignores linear drift)", "line", "0.45", 0.8, "-.",
+                None),
+               ("fitted points (95 %)", "line", "k", 0.8, "-", "filled"),
+               ("points left out of the fit", "line", "k", 0.8, "-", "hollow"),
+               ("fitted model", "line", MODEL_COLOR, 1.6, "-", None)]
+    entries += [(_LABEL[n], "line", _COLOR[n], 1.2, "--", None) for n in TERM_NAMES]
+    entries.append(("dotted: term not resolved, drawn at its upper bound", "line", "0.5", 0.9,
+                    ":", None))
+    return entries
 
-    handles = [Patch(color="0.8", label="95 % interval"),
-               Line2D([], [], color="k", lw=1.2, label="overlapping ADEV"),
-               Line2D([], [], color="0.45", lw=0.8, ls="-.",
-                      label="overlapping Hadamard dev. (ignores linear drift)"),
-               Line2D([], [], color="k", marker="o", ms=3, lw=0.8,
-                      label="fitted points (95 %)"),
-               Line2D([], [], color="k", marker="o", ms=3, mfc="white", lw=0.8,
-                      label="points left out of the fit"),
-               Line2D([], [], color="#ff7f0e", lw=1.6, label="fitted model")]
-    handles += [Line2D([], [], color=_COLOR[n], lw=1.2, ls="--", label=_LABEL[n])
-                for n in TERM_NAMES]
-    handles.append(Line2D([], [], color="0.5", lw=0.9, ls=":",
-                          label="dotted: term not resolved, drawn at its upper bound"))
-    fig.legend(handles=handles, loc="upper center", ncol=5, fontsize=7, frameon=False,
-               bbox_to_anchor=(0.5, 0.985))
+
+def _legend(canvas, top: float, ncol: int, size_pt: float = 7.0) -> None:
+    """One legend for the whole figure, centred, its frame's top ``top`` px from the
+    figure's top, in matplotlib's legend geometry (handle 2 em, gap 0.8 em, columns
+    2 em apart, filled top to bottom with the first ``n % ncol`` one row longer)."""
+    from .raster import Layer
+
+    entries = _legend_entries()
+    em = canvas.px(size_pt)
+    handle, pad, gap, step = 2.0 * em, 0.8 * em, 2.0 * em, 1.585 * em
+    rows, large = divmod(len(entries), ncol)
+    per_col = [rows + 1] * large + [rows] * (ncol - large)
+    columns, i = [], 0
+    for n in per_col:
+        if n:
+            columns.append(entries[i:i + n])
+        i += n
+    widths = [handle + pad + max(canvas.text_width(e[0], size_pt) for e in col)
+              for col in columns]
+    x = (canvas.width - (sum(widths) + gap * (len(widths) - 1))) / 2
+    first = top + 0.4 * em  # the frame's inner padding (matplotlib's borderpad)
+    layer = Layer(canvas, (0, max(0, int(first - em)), canvas.width,
+                           min(canvas.height, int(first + max(per_col) * step + em))))
+    for col, w in zip(columns, widths):
+        for r, (label, kind, ink, lw, style, marker) in enumerate(col):
+            cy = first + r * step + 0.54 * em
+            canvas.text(x + handle + pad, cy, label, size_pt, va="center")
+            mid = x + handle / 2
+            if kind == "patch":
+                layer.polygon(layer.to_layer([x, x + handle, x + handle, x],
+                                             [cy - 0.35 * em] * 2 + [cy + 0.35 * em] * 2), ink)
+            elif marker:
+                # The panels draw each point as a circle on its vertical interval bar.
+                layer.polyline(layer.to_layer([mid, mid], [cy - 0.6 * em, cy + 0.6 * em]),
+                               ink, lw)
+                layer.circles(layer.to_layer([mid], [cy]), 3.0, ink,
+                              None if marker == "filled" else "white")
+            else:
+                layer.polyline(layer.to_layer([x, x + handle], [cy, cy]), ink, lw, style)
+        x += w + gap
+    layer.paste()
+
+
+def _grid_boxes(n: int, cols: int, width: float, height: float, margins: tuple,
+                wspace: float, hspace: float, dpi: float) -> list[tuple[int, int, int, int]]:
+    """Data areas of ``n`` panels in ``cols`` columns, row by row, final px.
+
+    Parameters
+    ----------
+    n, cols : int
+        Panels and columns (rows as needed).
+    width, height : float
+        Figure size, in.
+    margins : (left, right, top, bottom)
+        Space outside the panels' data areas, in.
+    wspace, hspace : float
+        Gaps between panels as fractions of a panel's width and height
+        (matplotlib's ``subplots_adjust`` meaning, so the layout stays as it was).
+    dpi : float
+
+    Returns
+    -------
+    list of (left, top, right, bottom), int
+    """
+    rows = -(-n // cols)
+    left, right, top, bottom = margins
+    cell_w = (width - left - right) / (cols + wspace * (cols - 1))
+    cell_h = (height - top - bottom) / (rows + hspace * (rows - 1))
+    boxes = []
+    for i in range(n):
+        r, c = divmod(i, cols)
+        x0 = left + c * cell_w * (1 + wspace)
+        y0 = top + r * cell_h * (1 + hspace)
+        boxes.append(tuple(int(round(v * dpi)) for v in (x0, y0, x0 + cell_w, y0 + cell_h)))
+    return boxes
+
+
+def allan_canvas(models: list[ChannelModel], dense: list[AllanCurve],
+                 hadamard: list[AllanCurve], title: str | None, *, cols: int = 3,
+                 width: float | None = None, height: float | None = None,
+                 margins: tuple = (0.75, 0.25, 1.1, 1.75), legend_cols: int = 5,
+                 legend_top: float = 0.015, dpi: float = DPI):
+    """The Allan figure drawn on a :class:`~noisecal.export.raster.Canvas`.
+
+    Parameters
+    ----------
+    models, dense, hadamard : list
+        As :func:`allan_figure`.
+    title : str or None
+        Figure title (none on None).
+    cols : int
+        Most panels a row.
+    width, height : float, optional
+        Figure size, in (default 5.8 a column, 6.0 a row + 1.1).
+    margins : (left, right, top, bottom)
+        Around the panels' data areas, in.
+    legend_cols : int
+        Columns of the style legend.
+    legend_top : float
+        Fraction of the height above the legend's frame.
+    dpi : float
+
+    Returns
+    -------
+    Canvas
+        Call ``.png()`` or ``.pixels()`` on it.
+    """
+    from .raster import Canvas
+
+    cols = max(1, min(cols, len(models)))
+    rows = -(-len(models) // cols)
+    width = 5.8 * cols if width is None else width
+    height = 6.0 * rows + 1.1 if height is None else height
+    canvas = Canvas(round(width * dpi), round(height * dpi), dpi)
+    # matplotlib's hspace for the same layout: the term text needs room under a panel.
+    hspace = 1.75 * rows / height * 1.9
+    boxes = _grid_boxes(len(models), cols, width, height, margins, 0.28, hspace, dpi)
+    for box, model, curve, had in zip(boxes, models, dense, hadamard):
+        _panel(canvas, box, model, curve, had)
+    # The legend's frame sits half an em (matplotlib's borderaxespad) below its anchor.
+    _legend(canvas, legend_top * canvas.height + 0.5 * canvas.px(7.0), legend_cols)
+    if title:
+        canvas.text(canvas.width / 2, 0.002 * canvas.height, title, 10.0, ha="center",
+                    va="top")
+    return canvas
 
 
 def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
                  hadamard: list[AllanCurve], path: Path, title: str) -> None:
-    """One log–log Allan panel per channel, written atomically as PNG.
+    """One log–log Allan panel per channel (three a row), written atomically as PNG.
+
+    The figure is 5.8 in a column and 6.0 in a row + 1.1 in, at 110 dpi, drawn
+    without matplotlib (:mod:`noisecal.export.raster`).
 
     Parameters
     ----------
@@ -253,22 +348,10 @@ def allan_figure(models: list[ChannelModel], dense: list[AllanCurve],
     title : str
         Figure title.
     """
-    cols = min(3, len(models))
-    rows = int(np.ceil(len(models) / cols))
-    width, height = 5.8 * cols, 6.0 * rows + 1.1
-    fig = _figure(width, height, dpi=110)
-    axes = fig.subplots(rows, cols, squeeze=False, subplot_kw=LOG_AXES)
-    for ax, model, curve, had in zip(axes.flat, models, dense, hadamard):
-        _panel(ax, model, curve, had)
-    for ax in list(axes.flat)[len(models):]:
-        ax.axis("off")
-    fig.suptitle(title, fontsize=10, y=0.998)
-    _style_legend(fig)
-    # Fixed margins in inches (title and legend on top, term text under each panel).
-    fig.subplots_adjust(left=0.75 / width, right=1 - 0.25 / width, top=1 - 1.1 / height,
-                        bottom=1.75 / height, wspace=0.28, hspace=1.75 * rows / height * 1.9)
+    png = allan_canvas(models, dense, hadamard, title).png()
     with atomic_path(path) as tmp:
-        _write_png(fig, tmp)
+        with open(tmp, "wb") as fh:
+            fh.write(png)
 
 
 def recheck_figure(base: dict, new: dict, path: Path) -> None:

@@ -1,11 +1,21 @@
-"""The Allan figure: what it must show, its tick labels, the PNG it writes."""
+"""The Allan figure: what it must show, its ticks and labels, the PNG it writes, and that
+drawing it loads no matplotlib."""
 
 from __future__ import annotations
 
+import pickle
+import subprocess
+import sys
 from dataclasses import replace
 
 import numpy as np
 import pytest
+
+ORANGE, LEFT_OUT, RED = (255, 127, 14), (253, 233, 201), (192, 0, 0)
+TERMS = ("quantization", "white_noise", "bias_instability", "bias_random_walk", "rate_ramp")
+TERM_RGB = {"quantization": (140, 86, 75), "white_noise": (31, 119, 180),
+            "bias_instability": (44, 160, 44), "bias_random_walk": (214, 39, 40),
+            "rate_ramp": (148, 103, 189)}
 
 
 @pytest.fixture(scope="module")
@@ -22,85 +32,93 @@ def fitted():
     return noisecal.static(rec, reps=20, seed=2)
 
 
-def _drawn_panel(res, model=None):
-    from noisecal.export.plot import LOG_AXES, _figure, _panel
+def _pixels(models, dense, hadamard, title="title"):
+    from noisecal.export.plot import allan_canvas
 
-    fig = _figure(5.8, 6.0, dpi=80)
-    ax = fig.subplots(1, 1, subplot_kw=LOG_AXES)
-    _panel(ax, model or res.models[0], res.dense[0], res.hadamard[0])
-    fig.canvas.draw()
-    return fig, ax
+    canvas = allan_canvas(models, dense, hadamard, title)
+    texts = canvas.texts()
+    return canvas.pixels().astype(int), texts
 
 
-def test_tick_labels_name_the_decades_matplotlib_would(fitted):
-    """Reference library: the plain-text labels (10⁻³) stand at the decades inside the
-    view and give the exponents that matplotlib's own log locator and mathtext
-    formatter (LogLocator, LogFormatterSciNotation) give for the same axis."""
+def _near(rgb, color, tol=10):
+    return (np.abs(rgb - np.array(color)) <= tol).all(axis=2)
+
+
+def _frames(rgb, least=200):
+    """Panel frames found in the image: black horizontal runs of at least ``least``
+    px, grouped by their columns; a frame is a pair of such edges (top, bottom).
+    Returns (left, top, right, bottom) boxes of the data areas, row by row."""
+    dark = (rgb < 40).all(axis=2)
+    edges: dict = {}
+    for y in range(dark.shape[0]):
+        row = np.concatenate(([0], dark[y].astype(np.int8), [0]))
+        change = np.flatnonzero(np.diff(row))
+        for x0, x1 in zip(change[::2], change[1::2]):
+            if x1 - x0 >= least:
+                edges.setdefault((x0, x1), []).append(y)
+    boxes = []
+    for (x0, x1), ys in edges.items():
+        # One-pixel edges, one frame above the other: top, bottom, top, bottom...
+        for top, bottom in zip(ys[::2], ys[1::2]):
+            boxes.append((x0 + 1, top + 1, x1 - 1, bottom))
+    return sorted(boxes, key=lambda b: (b[1], b[0]))
+
+
+def _limits(dense):
+    """The plot's rule for a panel's limits: the dense curve's taus, its band's
+    extremes a factor 3 out."""
+    return ((dense.taus[0], dense.taus[-1]),
+            (np.nanmin(dense.lower) / 3.0, np.nanmax(dense.upper) * 3.0))
+
+
+def _to_px(box, xlim, ylim, x, y):
+    """Log mapping (common practice, no source)."""
+    left, top, right, bottom = box
+    fx = (np.log10(x) - np.log10(xlim[0])) / (np.log10(xlim[1]) - np.log10(xlim[0]))
+    fy = (np.log10(y) - np.log10(ylim[0])) / (np.log10(ylim[1]) - np.log10(ylim[0]))
+    return left + fx * (right - left), bottom - fy * (bottom - top)
+
+
+def test_tick_positions_and_labels_are_matplotlibs():
+    """Reference library: for the same limits, the decade ticks are those of
+    matplotlib's LogLocator (every other decade beyond nine, as its default of
+    nine ticks gives), the 1-2-5 ticks of a view shorter than a decade those of
+    LogLocator(subs=(1, 2, 5)), and each plain-text label (10⁻³) carries the
+    exponent LogFormatterSciNotation writes in mathtext."""
     from matplotlib.ticker import LogFormatterSciNotation, LogLocator
 
-    _, ax = _drawn_panel(fitted)
+    from noisecal.export.plot import _decade, _ticks
+
     sup = str.maketrans("⁻⁰¹²³⁴⁵⁶⁷⁸⁹", "-0123456789")
-    for axis, (lo, hi) in ((ax.xaxis, ax.get_xlim()), (ax.yaxis, ax.get_ylim())):
-        locs = axis.get_majorticklocs()
-        ref = [v for v in LogLocator(10.0).tick_values(lo, hi) if lo <= v <= hi]
-        np.testing.assert_allclose(locs, ref, rtol=1e-12)
-        fmt = LogFormatterSciNotation()
-        fmt.set_axis(axis)
-        fmt.set_locs(locs)
-        for text, v in zip([t.get_text() for t in axis.get_majorticklabels()], locs):
-            mathtext = fmt(v)  # e.g. '$\\mathdefault{10^{-3}}$'
-            exponent = mathtext.split("^{")[1].split("}")[0]
-            assert text.startswith("10") and text[2:].translate(sup) == exponent, (text,
-                                                                                   mathtext)
-
-
-def test_panel_keeps_its_content(fitted):
-    """One band per interval (not one artist per point), the curve, the fitted model,
-    the five terms, the left-out band where a fit leaves taus out, and the red warning
-    of a failed model check: common practice, no source."""
-    from matplotlib.collections import LineCollection, PolyCollection
-
-    res = fitted
-    model = res.models[0]
-    used = np.ones(model.curve.taus.shape[0], dtype=bool)
-    used[:2] = False
-    failed = replace(model, fit=replace(model.fit, used=used),
-                     check=replace(model.check, consistent=False,
-                                   cause="points below the model at short taus"))
-    _, ax = _drawn_panel(res, failed)
-    bands = [c for c in ax.collections if isinstance(c, PolyCollection)]
-    bars = [c for c in ax.collections if isinstance(c, LineCollection)]
-    assert len(bands) == 1  # the dense curve's 95 % band
-    assert len(ax.patches) == 1  # the left-out shading
-    assert len(bars) == 1 and len(bars[0].get_segments()) == model.curve.taus.shape[0]
-    assert len(ax.lines) >= 2 + 2 + 5 + 1  # ADEV, Hadamard, points, terms, model
-    red = [t for t in ax.texts if t.get_color() == "#c00000"]
-    assert len(red) == 1 and "NOT consistent" in red[0].get_text()
-    assert any("left out of the fit" in t.get_text() for t in ax.texts)
-    block = next(t.get_text() for t in ax.texts if t.get_text().startswith("Q: ")).split("\n")
-    assert [line.split(":")[0] for line in block] == ["Q", "N", "B", "K", "R"]
-    for line, name in zip(block, ("quantization", "white_noise", "bias_instability",
-                                  "bias_random_walk", "rate_ramp")):
-        est = model.terms[name]
-        assert (f"{est.value:.3g} [{est.lower:.3g}, {est.upper:.3g}]" if est.resolved
-                else f"< {est.upper:.3g}") in line and line.endswith(est.unit)
-
-
-def test_legend_names_every_term_symbol(fitted):
-    """The panels write each term by its letter; the shared legend names them all
-    (IEEE Std 952 symbols Q, N, B, K, R)."""
-    from noisecal.export.plot import _figure, _style_legend
-
-    fig = _figure(4.0, 3.0)
-    _style_legend(fig)
-    labels = [t.get_text() for t in fig.legends[0].get_texts()]
-    for label in ("quantization Q", "white noise N", "bias instability B",
-                  "bias random walk K", "rate ramp R"):
-        assert label in labels
+    fmt = LogFormatterSciNotation()
+    for x, y in (((2.5e-3, 1.8e3), (2.9e-6, 2.6e-3)), ((0.05, 3.4e3), (4.4e-6, 3.3e-4)),
+                 ((1e-3, 2e8), (1e-12, 1e-1)), ((0.01, 5.0), (1.5e-5, 8.8e-5))):
+        xmajor, ymajor, yminor = _ticks(x, y)
+        for values, (lo, hi) in ((xmajor, x), (ymajor, y)):
+            if hi / lo > 10:
+                ref = [v for v in LogLocator(10.0, numticks=9).tick_values(lo, hi)
+                       if lo <= v <= hi]
+                np.testing.assert_allclose(values, ref, rtol=1e-12)
+                for v in values:
+                    label = _decade(v)
+                    exponent = fmt(v).split("^{")[1].split("}")[0]
+                    assert label.startswith("10") and label[2:].translate(sup) == exponent
+        if y[1] / y[0] < 10:
+            ref = [v for v in LogLocator(10.0, subs=(1.0, 2.0, 5.0)).tick_values(*y)
+                   if y[0] <= v <= y[1]]
+            np.testing.assert_allclose(ymajor, ref, rtol=1e-12)
+            assert yminor.shape[0] == 0
+            assert _decade(ymajor[0]) == "2×10⁻⁵"
+        else:
+            ref = [v for v in LogLocator(10.0, subs=(2.0, 5.0)).tick_values(*y)
+                   if y[0] <= v <= y[1]]
+            np.testing.assert_allclose(yminor, ref, rtol=1e-12)
 
 
 def test_figure_written_as_rgb_png(fitted, tmp_path):
-    """The PNG decodes (Pillow) at the figure's size in pixels, without an alpha channel."""
+    """The PNG decodes (Pillow) at the figure's size in pixels (5.8 in a column,
+    6.0 in a row + 1.1 in, 110 dpi), RGB, with its dpi; the write leaves no
+    temporary file."""
     from PIL import Image
 
     from noisecal.export.plot import allan_figure
@@ -111,29 +129,141 @@ def test_figure_written_as_rgb_png(fitted, tmp_path):
         im.load()
         assert im.mode == "RGB"
         assert im.size == (round(5.8 * 2 * 110), round((6.0 + 1.1) * 110))
+        assert im.info["dpi"] == pytest.approx((110.0, 110.0), abs=0.01)
         assert np.asarray(im).std() > 10  # something drawn
-    assert not list(tmp_path.glob(".*"))
+    assert [p.name for p in tmp_path.iterdir()] == ["a.png"]
 
 
-def test_png_decodes_to_the_drawn_pixels():
-    """Reference library: Pillow's PNG decoder reads the written file back to exactly
-    the canvas's RGB pixels, at the figure's dpi (PNG, ISO/IEC 15948)."""
+def test_one_framed_panel_per_channel(fitted):
+    """Five channels make five panels, three a row: five frames found in the pixels,
+    at three columns and two rows (common practice, no source)."""
+    models = [replace(fitted.models[i % 2], channel=f"ch{i}") for i in range(5)]
+    dense = [fitted.dense[i % 2] for i in range(5)]
+    had = [fitted.hadamard[i % 2] for i in range(5)]
+    rgb, texts = _pixels(models, dense, had)
+    boxes = _frames(rgb)
+    assert len(boxes) == 5
+    assert len({b[0] for b in boxes}) == 3 and len({b[1] for b in boxes}) == 2
+    assert rgb.shape[:2] == (round((6.0 * 2 + 1.1) * 110), round(5.8 * 3 * 110))
+    assert [t for t, _ in texts if t.startswith("ch")] == [f"ch{i}" for i in range(5)]
+
+
+def _three_terms(model):
+    """The fitted channel with a bias instability and a random walk added, resolved,
+    so that three terms show apart from the total (the simulated data resolve only
+    white noise, whose line the total covers)."""
+    from noisecal.types import Estimate
+
+    n = model.terms["white_noise"].value
+    b, k = 3.7e-4, 1.1e-4  # B flat at 3e-4 rad/s, K 4e-4 rad/s at 40 s
+    terms = dict(model.terms)
+    terms["bias_instability"] = Estimate(b, 0.9 * b, 1.1 * b, "rad/s", "test")
+    terms["bias_random_walk"] = Estimate(k, 0.9 * k, 1.1 * k, "rad/s*Hz^0.5", "test")
+    return replace(model, terms=terms, coefficients=np.array([0.0, n * n, b * b, k * k, 0.0]))
+
+
+def test_panel_shows_terms_model_and_points(fitted):
+    """Inside the panel: the total model's orange; each resolved term's colour (a
+    dashed line); an unresolved term's full colour absent (it is dotted and faint);
+    filled dots at the fitted points and hollow ones at points left out, with the
+    left-out span's colour; the red warning only for a failed model check; the
+    term values by letter under the panel (IEEE Std 952 symbols Q, N, B, K, R)."""
+    res = fitted
+    model, dense, had = _three_terms(res.models[0]), res.dense[0], res.hadamard[0]
+    assert model.check.consistent
+    rgb, texts = _pixels([model], [dense], [had])
+    (box,) = _frames(rgb)
+    left, top, right, bottom = box
+    inside = rgb[top:bottom, left:right]
+    assert _near(inside, ORANGE, 6).sum() > 100
+    for name in TERMS:
+        est = model.terms[name]
+        count = _near(inside, TERM_RGB[name], 6).sum()
+        assert count > 30 if est.resolved else count == 0, (name, est.resolved, count)
+    # The check is worth something only with both kinds of term in the panel.
+    assert {model.terms[n].resolved for n in TERMS} == {True, False}
+    assert _near(rgb, LEFT_OUT, 3).sum() == 0
+    assert _near(rgb, RED, 12).sum() == 0
+    assert not any("NOT consistent" in t for t, _ in texts)
+    (block,) = [t for t, _ in texts if t.startswith("Q: ")]
+    lines = block.split("\n")
+    assert [line.split(":")[0] for line in lines] == ["Q", "N", "B", "K", "R"]
+    for line, name in zip(lines, TERMS):
+        est = model.terms[name]
+        assert (f"{est.value:.3g} [{est.lower:.3g}, {est.upper:.3g}]" if est.resolved
+                else f"< {est.upper:.3g}") in line and line.endswith(est.unit)
+
+    # The same channel with its first three points left out and a failed check.
+    used = np.ones(model.curve.taus.shape[0], dtype=bool)
+    used[:3] = False
+    failed = replace(model, fit=replace(model.fit, used=used),
+                     check=replace(model.check, consistent=False,
+                                   cause="points below the model at short taus"))
+    rgb2, texts2 = _pixels([failed], [dense], [had])
+    inside2 = rgb2[top:bottom, left:right]
+    shade = np.argwhere(_near(inside2, LEFT_OUT, 3))
+    assert shade.shape[0] > 500
+    xlim, ylim = _limits(dense)
+    start, _ = _to_px(box, xlim, ylim, model.curve.taus[3], 1.0)
+    assert shade[:, 1].max() + left < start  # the span ends before the first fitted tau
+    assert _near(rgb2, RED, 12).sum() > 5
+    assert any(t.startswith("model check: NOT consistent") and c == RED for t, c in texts2)
+    assert any(t.startswith("left out of the fit:\nsensor's low-pass") for t, _ in texts2)
+    # Centre pixel of each marker: white in a hollow one; in a filled one black (or
+    # the orange model drawn over it), never white.
+    px, py = _to_px(box, xlim, ylim, model.curve.taus, model.curve.dev)
+    checked = 0
+    for i in range(3):
+        y, x = int(py[i]), int(px[i])
+        if left + 3 <= x < right - 3 and top + 3 <= y < bottom - 3:
+            assert rgb2[y, x].min() > 180, (i, rgb2[y, x])
+            assert rgb[y, x].min() < 60, (i, rgb[y, x])
+            checked += 1
+    assert checked >= 2
+
+
+def test_legend_names_every_style_and_term_symbol(fitted):
+    """One legend for the figure names each line style and the five terms with their
+    IEEE Std 952 symbols (Q, N, B, K, R), once per figure whatever the panel count."""
+    models = [replace(fitted.models[0], channel=f"c{i}") for i in range(3)]
+    _, texts = _pixels(models, [fitted.dense[0]] * 3, [fitted.hadamard[0]] * 3)
+    said = [t for t, _ in texts]
+    for label in ("quantization Q", "white noise N", "bias instability B",
+                  "bias random walk K", "rate ramp R", "95 % interval", "overlapping ADEV",
+                  "fitted model", "points left out of the fit"):
+        assert said.count(label) == 1, label
+
+
+def test_html_panel_is_one_panel_png(fitted):
+    """The report's one-channel figure: one framed panel, PNG at 6.4 × 8.4 in and
+    110 dpi (common practice, no source)."""
     import io
 
     from PIL import Image
 
-    from noisecal.export.plot import _figure, _write_png
+    from noisecal.export.html.figures import allan_panel
 
-    fig = _figure(3.0, 2.0, dpi=90)
-    ax = fig.subplots()
-    ax.fill_between([1, 2, 3], [1, 2, 1], [2, 3, 3], color="0.8")
-    ax.plot([1, 3], [3, 1], color="#d62728")
-    ax.set_title("τ 10⁻³")
-    buf = io.BytesIO()
-    _write_png(fig, buf, level=6)
-    with Image.open(io.BytesIO(buf.getvalue())) as im:
+    png = allan_panel(fitted.models[1], fitted.dense[1], fitted.hadamard[1])
+    with Image.open(io.BytesIO(png)) as im:
         im.load()
-        assert im.mode == "RGB" and im.size == (270, 180)
-        assert im.info["dpi"] == pytest.approx((90.0, 90.0), abs=0.01)
-        np.testing.assert_array_equal(np.asarray(im),
-                                      np.asarray(fig.canvas.buffer_rgba())[:, :, :3])
+        assert im.size == (round(6.4 * 110), round(8.4 * 110))
+        assert len(_frames(np.asarray(im).astype(int))) == 1
+
+
+def test_drawing_the_figure_loads_no_matplotlib(fitted, tmp_path):
+    """The figure and the report's panel are drawn without importing matplotlib
+    (0.2 s of a fresh process before it draws anything): common practice, no
+    source."""
+    data = tmp_path / "fitted.pkl"
+    data.write_bytes(pickle.dumps((fitted.models, fitted.dense, fitted.hadamard)))
+    code = ("import pickle, sys\n"
+            "from noisecal.export.plot import allan_figure\n"
+            "from noisecal.export.html.figures import allan_panel\n"
+            f"m, d, h = pickle.loads(open({str(data)!r}, 'rb').read())\n"
+            f"allan_figure(m, d, h, {str(tmp_path / 'f.png')!r}, 't')\n"
+            "allan_panel(m[0], d[0], h[0])\n"
+            "print(' '.join(k for k in ('matplotlib', 'matplotlib.pyplot') if k in sys.modules))")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.strip() == ""
+    assert (tmp_path / "f.png").stat().st_size > 10_000

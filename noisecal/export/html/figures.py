@@ -2,8 +2,9 @@
 
 The job plots are drawn by the same functions that write the PNG beside a YAML
 block (:mod:`noisecal.export.plot`, ``motion_plot``, ``odometry_plot``,
-``camera_plot``), into a private temporary folder, and read back as bytes; the
-report embeds them as ``data:`` URIs so that the file fetches nothing.
+``camera_plot``), into a private temporary folder, and read back as bytes (the
+static job's Allan panels straight to bytes); the report embeds them as
+``data:`` URIs so that the file fetches nothing.
 """
 
 from __future__ import annotations
@@ -124,24 +125,14 @@ def motion_rows(result, j: int) -> bytes:
 
 
 def allan_panel(model, dense, hadamard) -> bytes:
-    """One channel's Allan panel as the static job's plot draws it, with its style legend
-    in two columns above it (the job's five-column legend is made for three panels)."""
-    from ..plot import LOG_AXES, _figure, _panel, _style_legend, _write_png
+    """One channel's Allan panel as the static job's plot draws it (without
+    matplotlib), with its style legend in two columns above it (the job's
+    five-column legend is made for three panels)."""
+    from ..plot import allan_canvas
 
-    width, height = 6.4, 8.4
-    fig = _figure(width, height, dpi=110)
-    ax = fig.subplots(1, 1, subplot_kw=LOG_AXES)
-    _panel(ax, model, dense, hadamard)
-    _style_legend(fig)
-    old = fig.legends.pop()
-    fig.legend(old.legend_handles, [t.get_text() for t in old.get_texts()],
-               loc="upper center", ncol=2, fontsize=7, frameon=False,
-               bbox_to_anchor=(0.5, 0.995))
-    fig.subplots_adjust(left=0.8 / width, right=1 - 0.25 / width, top=1 - 1.5 / height,
-                        bottom=1.75 / height)
-    buf = io.BytesIO()
-    _write_png(fig, buf)
-    return buf.getvalue()
+    canvas = allan_canvas([model], [dense], [hadamard], None, cols=1, width=6.4, height=8.4,
+                          margins=(0.8, 0.25, 1.5, 1.75), legend_cols=2, legend_top=0.005)
+    return canvas.png()
 
 
 _VERDICT_Y = {"consistent": 0, "better": 0, "inconclusive": 1, "changed": 2, "worse": 2}
