@@ -18,7 +18,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import chdtr, chdtrc, gammaincinv
+
+from .special import gammainc, gammaincc, gammaincinv
 
 MAD_TO_SIGMA = 1.482602218505602
 """1 / Φ⁻¹(3/4): MAD → σ for Gaussian data (Rousseeuw & Croux 1993)."""
@@ -60,7 +61,7 @@ def ljung_box(r: np.ndarray, lags: int) -> tuple[float, float]:
     n = np.asarray(r).shape[0]
     rho = acf(r, lags)[1:]
     q = float(n * (n + 2) * np.sum(rho ** 2 / (n - np.arange(1, lags + 1))))
-    return q, float(chdtrc(lags, q))  # chi-square survival function
+    return q, float(gammaincc(lags / 2.0, q / 2.0))  # chi-square survival function
 
 
 def effective_size(r: np.ndarray, max_lag: int | None = None) -> float:
@@ -118,8 +119,8 @@ def chi2_ppf(p, k):
     """Quantile ``p`` of the chi-square law with ``k`` degrees of freedom.
 
     ``2·P⁻¹(k/2, p)`` with P the regularised lower incomplete gamma function, which
-    is what scipy.stats.chi2.ppf computes, from scipy.special: no scipy.stats (a few
-    tenths of a second to import) for a quantile.
+    is what scipy.stats.chi2.ppf computes, from :mod:`noisecal.analysis.special`:
+    neither scipy.stats nor scipy.special (tenths of a second to import) for a quantile.
     """
     return 2.0 * gammaincinv(np.asarray(k, dtype=float) / 2.0, p)
 
@@ -208,7 +209,7 @@ def truncation_factor(probability: float, p: int) -> float:
     c = P(χ²_{p+2} ≤ γ) / P(χ²_p ≤ γ); dividing by c restores Σ.
     """
     gamma = chi2_ppf(probability, p)
-    return float(chdtr(p + 2, gamma) / probability)  # chi-square CDF
+    return float(gammainc((p + 2) / 2.0, gamma / 2.0) / probability)  # chi-square CDF
 
 
 @dataclass(frozen=True)

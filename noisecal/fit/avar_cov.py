@@ -477,7 +477,7 @@ def correlated_chi2(mean: np.ndarray, cov: np.ndarray, reps: int,
     -------
     avar : ndarray, shape (reps, k)
     """
-    from scipy import special
+    from ..analysis import special  # scipy.special's functions, without its import
 
     sd = np.sqrt(np.diag(cov))
     corr = cov / np.outer(sd, sd)
@@ -490,9 +490,12 @@ def correlated_chi2(mean: np.ndarray, cov: np.ndarray, reps: int,
     z /= np.sqrt(np.sum(root * root, axis=1))
     nu = 2.0 * mean ** 2 / sd ** 2
     # Upper tail from the complement keeps its quantiles accurate.
-    lower = special.gammaincinv(nu / 2.0, special.ndtr(np.minimum(z, 0.0)))
-    upper = special.gammainccinv(nu / 2.0, special.ndtr(-np.maximum(z, 0.0)))
-    g = np.where(z <= 0.0, lower, upper)
+    # Each draw only on its own side (the other side's value was discarded).
+    shape = np.broadcast_to(nu / 2.0, z.shape)
+    neg = z <= 0.0
+    g = np.empty_like(z)
+    g[neg] = special.gammaincinv(shape[neg], special.ndtr(z[neg]))
+    g[~neg] = special.gammainccinv(shape[~neg], special.ndtr(-z[~neg]))
     return mean * g * 2.0 / nu
 
 

@@ -19,8 +19,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy.special import ndtri
-
+from ..analysis.special import ndtri
 from ..types import Estimate
 from ..units import STANDARD_GRAVITY
 from .simulate import basis

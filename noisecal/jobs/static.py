@@ -236,7 +236,7 @@ def _channel(rec: Recording, name: str, reps: int, seed: int, bar):
     (ChannelModel, AllanCurve, AllanCurve, PsdCheck)
         The model, the dense ADEV and Hadamard curves, the spectrum check.
     """
-    # Here, not at module level: numba and scipy.special load once the data are read.
+    # Here, not at module level: the fitting modules load once the data are read.
     from ..fit.gauss_markov import fit_gauss_markov
     from ..fit.turn_on import turn_on_bias
 
