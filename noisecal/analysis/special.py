@@ -337,18 +337,24 @@ def ndtri(p):
     q = p - 0.5
     out = np.full(p.shape, np.nan)
     central = np.abs(q) <= 0.425
-    qc = q[central]
-    r = 0.180625 - qc * qc
-    out[central] = qc * _horner(_A, r) / _horner(_B, r)
+    if central.any():
+        qc = q[central]
+        r = 0.180625 - qc * qc
+        out[central] = qc * _horner(_A, r) / _horner(_B, r)
     tail = ~central & (p > 0.0) & (p < 1.0)
-    qt = q[tail]
-    pt = p[tail]
-    r = np.sqrt(-np.log(np.where(qt < 0.0, pt, 1.0 - pt)))
-    near = np.where(r <= 5.0, r - 1.6, 0.0)
-    far = np.where(r > 5.0, r - 5.0, 0.0)
-    val = np.where(r <= 5.0, _horner(_C, near) / _horner(_D, near),
-                   _horner(_E, far) / _horner(_F, far))
-    out[tail] = np.where(qt < 0.0, -val, val)
+    if tail.any():
+        qt = q[tail]
+        pt = p[tail]
+        r = np.sqrt(-np.log(np.where(qt < 0.0, pt, 1.0 - pt)))
+        val = np.empty_like(r)
+        near = r <= 5.0
+        if near.any():
+            rn = r[near] - 1.6
+            val[near] = _horner(_C, rn) / _horner(_D, rn)
+        if not near.all():
+            rf = r[~near] - 5.0
+            val[~near] = _horner(_E, rf) / _horner(_F, rf)
+        out[tail] = np.where(qt < 0.0, -val, val)
     out[p == 0.0] = -np.inf
     out[p == 1.0] = np.inf
     return out[()]
@@ -400,16 +406,6 @@ def _a_log_ratio(a: np.ndarray, log_t: np.ndarray, d: np.ndarray) -> np.ndarray:
     near = (eps >= -0.5) & (eps <= 1.0)
     small = a * _log1pmx(np.where(near, eps, 0.0))
     return np.where(near, small, a * log_t - d)
-
-
-def _log_gamma_front(a: np.ndarray, x: np.ndarray) -> np.ndarray:
-    """ln(x^a e^−x / Γ(a)) for a, x > 0 finite.
-
-    Written as a (ln(x/a) − (x − a)/a) + ½ ln(a/2π) − ln Γ*(a), so that near x = a
-    (where the result matters) no large terms cancel (DiDonato & Morris 1986, §2).
-    """
-    log_t = np.log(x) - np.log(a)
-    return _a_log_ratio(a, log_t, x - a) + 0.5 * np.log(a / (2.0 * math.pi)) - _lgamma_star(a)
 
 
 def _series_p(a: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -538,12 +534,10 @@ def _powers(v: np.ndarray, n: int) -> np.ndarray:
     return out
 
 
-def _asymptotic_pq(a: np.ndarray, x: np.ndarray):
+def _asymptotic_pq(a: np.ndarray, m: np.ndarray, half_eta2: np.ndarray):
     """P and Q by the uniform asymptotic expansion (Temme 1979; DLMF 8.12.3-8.12.4):
     Q = ½ erfc(η √(a/2)) + R, P = ½ erfc(−η √(a/2)) − R,
-    R = e^(−aη²/2) / √(2πa) Σ_k c_k(η) a^−k, ½η² = λ − 1 − ln λ, λ = x/a."""
-    m = (x - a) / a
-    half_eta2 = -_log1pmx(m)
+    R = e^(−aη²/2) / √(2πa) Σ_k c_k(η) a^−k, ½η² = λ − 1 − ln λ, λ = x/a = 1 + m."""
     eta = np.sign(m) * np.sqrt(2.0 * half_eta2)
     u = eta * np.sqrt(0.5 * a)
     r = np.exp(-a * half_eta2) / np.sqrt(2.0 * math.pi * a) * _temme_sum(a, eta)
@@ -553,8 +547,9 @@ def _asymptotic_pq(a: np.ndarray, x: np.ndarray):
     return p, q
 
 
-def _regular_pq(a: np.ndarray, x: np.ndarray):
-    """P(a, x), Q(a, x) and ln(x^a e^−x / Γ(a)) for flat arrays of a, x > 0 finite.
+def _regular_pq(a: np.ndarray, x: np.ndarray, lgs: np.ndarray | None = None):
+    """P(a, x), Q(a, x) and ln(x^a e^−x / Γ(a)) for flat arrays of a, x > 0 finite
+    (``lgs``: ln Γ*(a) when the caller has it).
 
     Each point takes the method that gives its smaller tail directly, the other
     being one minus it (regions after DiDonato & Morris 1986): the uniform
@@ -562,18 +557,31 @@ def _regular_pq(a: np.ndarray, x: np.ndarray):
     1/a and thirty in η reach double precision); the continued fraction for
     Q when x ≥ a and x > 1.1; the small-x series for Q when x ≤ 1.1 and a is not
     much above it; the series for P elsewhere.
+
+    The prefactor is a (ln(x/a) − (x − a)/a) + ½ ln(a/2π) − ln Γ*(a), so that
+    near x = a (where it matters) no large terms cancel (DiDonato & Morris 1986,
+    §2); its first term is −½aη² of the uniform expansion.
     """
-    log_front = _log_gamma_front(a, x)
+    m = (x - a) / a
+    near = (m >= -0.5) & (m <= 1.0)
+    l1 = _log1pmx(np.where(near, m, 0.0))
+    with np.errstate(divide="ignore"):
+        ratio = np.where(near, a * l1, a * (np.log(x) - np.log(a)) - (x - a))
+    lgs = _lgamma_star(a) if lgs is None else lgs
+    log_front = ratio + 0.5 * np.log(a / (2.0 * math.pi)) - lgs
+    asy = (a > 8.0) & (np.abs(m) < 0.45)
+    if asy.all():
+        p, q = _asymptotic_pq(a, m, -l1)
+        return p, q, log_front
     p = np.empty_like(x)
     q = np.empty_like(x)
-    asy = (a > 8.0) & (np.abs(x - a) < 0.45 * a)
     with np.errstate(divide="ignore"):
         small_x_q = np.where(x <= 0.5, -0.4 / np.log(x) >= a, 1.1 * x >= a)
     cf = ~asy & (x > 1.1) & (x >= a)
     ser_q = ~asy & (x <= 1.1) & small_x_q
     ser_p = ~(asy | cf | ser_q)
     if asy.any():
-        p[asy], q[asy] = _asymptotic_pq(a[asy], x[asy])
+        p[asy], q[asy] = _asymptotic_pq(a[asy], m[asy], -l1[asy])
     if cf.any():
         q[cf] = np.exp(log_front[cf]) * _fraction_q(a[cf], x[cf])
         p[cf] = 1.0 - q[cf]
@@ -684,10 +692,11 @@ def _gamma_root(a: np.ndarray, t: np.ndarray, upper: np.ndarray) -> np.ndarray:
     out = x.copy()
     idx = np.flatnonzero(x > 0.0)  # below the smallest double: the root is 0 to it
     aa, lt, up, xx = a[idx], log_t[idx], upper[idx], x[idx]
+    lgs = _lgamma_star(aa)
     for _ in range(100):
         if not idx.size:
             break
-        p, q, log_front = _regular_pq(aa, xx)
+        p, q, log_front = _regular_pq(aa, xx, lgs)
         tail = np.where(up, q, p)
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             log_tail = np.log(tail)
@@ -709,7 +718,8 @@ def _gamma_root(a: np.ndarray, t: np.ndarray, upper: np.ndarray) -> np.ndarray:
         small = np.abs(g) < np.where(halley, 1e-5, 1e-8)
         done = small | (np.abs(step) < 1e-9) | (xx == 0.0) | ~np.isfinite(xx)
         keep = ~done
-        idx, aa, lt, up, xx = idx[keep], aa[keep], lt[keep], up[keep], xx[keep]
+        idx, aa, lt, up, xx, lgs = (idx[keep], aa[keep], lt[keep], up[keep], xx[keep],
+                                    lgs[keep])
     return out
 
 
