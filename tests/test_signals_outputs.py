@@ -325,7 +325,8 @@ def test_sigterm_during_the_analysis_leaves_nothing(tmp_path):
     """SIGTERM while the analysis runs (once the recording is cached): exit 143, one
     line, no output and no temporary file."""
     rec = _rec(tmp_path, n=2 ** 16)
-    p = _start(tmp_path, "static", rec.name, "-o", "o.yaml", "--reps", 5000, "--quiet")
+    # Replicates enough for the analysis to outlast the wait below (about 1 s here).
+    p = _start(tmp_path, "static", rec.name, "-o", "o.yaml", "--reps", 30000, "--quiet")
     deadline = time.monotonic() + 60
     while not list((tmp_path / "cache").rglob("meta.json")):
         assert time.monotonic() < deadline and p.poll() is None, "the run never cached"
