@@ -15,9 +15,9 @@ HEAVY = ("pint", "matplotlib", "pandas", "pyarrow", "rosbags", "jinja2", "dask",
                                     "noisecal.jobs.consistency", "noisecal.jobs.odometry"])
 def test_loading_a_job_loads_no_heavy_library(module):
     """Each of these libraries takes 0.1-0.7 s to import; a job loads them where it
-    uses them (the unit registry for an unusual unit, the plot when one is written,
-    the compiled kernels when a channel is fitted), so a run that fails on its
-    arguments or input stops at once: common practice, no source."""
+    uses them (the unit registry for an unusual unit, the other jobs' plots, numba
+    when its kernels run), so a run that fails on its arguments or input stops at
+    once: common practice, no source."""
     code = (f"import sys, {module}\n"
             f"print(' '.join(m for m in {HEAVY!r} if m in sys.modules))")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
