@@ -375,8 +375,8 @@ def _holds(A: np.ndarray, avar: np.ndarray, nu: np.ndarray, s: int, c6: np.ndarr
     """Whether the model lies inside the ``HOLD_LEVEL`` chi-square intervals of points s, s+1."""
     j = slice(s, s + 2)
     a = 1.0 - HOLD_LEVEL
-    lo = avar[j] * nu[j] / chi2_ppf(1.0 - a / 2.0, nu[j])
-    hi = avar[j] * nu[j] / chi2_ppf(a / 2.0, nu[j])
+    top, bottom = chi2_ppf(np.array([[1.0 - a / 2.0], [a / 2.0]]), nu[j][None, :])
+    lo, hi = avar[j] * nu[j] / top, avar[j] * nu[j] / bottom
     model = A[j] @ c6
     return bool(np.all((model >= lo) & (model <= hi)))
 
