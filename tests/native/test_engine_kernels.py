@@ -353,3 +353,27 @@ def test_a_run_on_the_c_kernels_does_not_import_numba(tmp_path):
                           env=env, cwd=tmp_path, timeout=120)
     assert done.returncode == 0, done.stderr
     assert done.stdout.strip() == "False"
+
+
+def test_a_library_older_than_its_sources_is_not_loaded_and_says_so(tmp_path, monkeypatch):
+    """A stale build would run old code: it is refused, with a warning naming the newer
+    source and how to rebuild, and the numba kernels run (common practice, no source)."""
+    import os
+    import shutil
+
+    from noisecal import _native
+
+    folder = tmp_path / "_native"
+    folder.mkdir()
+    lib = _native._path()
+    shutil.copy(lib, folder / lib.name)
+    (folder / "engine.c").write_text("/* edited */\n")
+    old = lib.stat().st_mtime - 100
+    os.utime(folder / lib.name, (old, old))
+    monkeypatch.setattr(_native, "_FOLDER", folder)
+    monkeypatch.setattr(_native, "_STATE", {})
+    with pytest.warns(RuntimeWarning, match="older than engine.c"):
+        assert _native.library() is None
+    monkeypatch.setattr(_native, "_STATE", {})
+    os.utime(folder / lib.name, None)
+    assert _native.library() is not None
