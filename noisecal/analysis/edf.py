@@ -314,6 +314,8 @@ def _length_groups(run_lengths: np.ndarray, weights: np.ndarray):
     weight-averaged length (an EDF grows about in proportion to the run's length,
     so a 9 % wide group moves the pooled EDF by far less than that).
     """
+    if run_lengths.shape[0] == 1:  # one run (no gaps), the common case: no sorting
+        return run_lengths, weights * weights
     distinct, inverse = np.unique(run_lengths, return_inverse=True)
     if distinct.shape[0] <= MAX_EDF_LENGTHS:
         return distinct, np.bincount(inverse, weights=weights * weights)
