@@ -17,7 +17,7 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parent.parent
 FOLDER = ROOT / "noisecal" / "_native"
-SOURCES = ["engine.c", "fit.c"]
+SOURCES = ["engine.c", "fit.c", "special.c"]
 FLAGS = ["-O3", "-fopenmp-simd", "-std=c99", "-shared", "-fPIC", "-Wall"]
 
 

@@ -33,6 +33,9 @@ import math
 
 import numpy as np
 
+from .. import _native
+from .._native import special_calls
+
 _EPS = 2.220446049250313e-16  # double precision's unit roundoff times two
 _TINY = 1e-300  # Lentz's guard against a zero denominator (Numerical Recipes §5.2)
 _SQRT_HALF = 0.70710678118654752440
@@ -305,6 +308,8 @@ def ndtr(x):
     ndarray or float
         Same shape as ``x``; NaN where ``x`` is NaN.
     """
+    if _native.enabled():
+        return special_calls.ndtr(x)
     t = np.asarray(x, dtype=float) * _SQRT_HALF
     out = np.empty_like(t)
     small = np.abs(t) < _SQRT_HALF
@@ -333,6 +338,8 @@ def ndtri(p):
     ndarray or float
         Same shape as ``p``; −inf at 0, +inf at 1, NaN outside [0, 1].
     """
+    if _native.enabled():
+        return special_calls.ndtri(p)
     p = np.asarray(p, dtype=float)
     q = p - 0.5
     out = np.full(p.shape, np.nan)
@@ -629,6 +636,8 @@ def gammainc(a, x):
     ndarray or float
         Broadcast shape of ``a`` and ``x``, in [0, 1]; NaN outside the domain.
     """
+    if _native.enabled():
+        return special_calls.gammainc(a, x)
     a, x = _as_float(a, x)
     p, _ = _gamma_pq(a.ravel(), x.ravel())
     return p.reshape(a.shape)[()]
@@ -648,6 +657,8 @@ def gammaincc(a, x):
     ndarray or float
         Broadcast shape of ``a`` and ``x``.
     """
+    if _native.enabled():
+        return special_calls.gammaincc(a, x)
     a, x = _as_float(a, x)
     _, q = _gamma_pq(a.ravel(), x.ravel())
     return q.reshape(a.shape)[()]
@@ -764,6 +775,8 @@ def gammaincinv(a, p):
     ndarray or float
         Broadcast shape; 0 at p = 0, ∞ at p = 1, NaN outside the domain.
     """
+    if _native.enabled():
+        return special_calls.gammaincinv(a, p)
     return _gamma_inverse(a, p, complement=False)
 
 
@@ -783,6 +796,8 @@ def gammainccinv(a, q):
     ndarray or float
         Broadcast shape; ∞ at q = 0, 0 at q = 1, NaN outside the domain.
     """
+    if _native.enabled():
+        return special_calls.gammainccinv(a, q)
     return _gamma_inverse(a, q, complement=True)
 
 
@@ -864,6 +879,8 @@ def betainc(a, b, x):
         Broadcast shape; NaN outside the domain (and for a = b = 0), with
         scipy.special's values where a or b is 0 or ∞.
     """
+    if _native.enabled():
+        return special_calls.betainc(a, b, x)
     a, b, x = _as_float(a, b, x)
     shape = a.shape
     a, b, x = a.ravel(), b.ravel(), x.ravel()
