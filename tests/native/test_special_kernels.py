@@ -22,6 +22,7 @@ from scipy import special as ref
 from noisecal import _native
 from noisecal.analysis import special
 
+from ..analysis.test_special import _rel
 from . import requires_native
 
 pytestmark = requires_native
@@ -48,14 +49,6 @@ def _numpy(monkeypatch, name, *args):
         return getattr(special, name)(*args)
     finally:
         monkeypatch.setenv("NOISECAL_NATIVE", "1")
-
-
-def _rel(got, want):
-    got, want = np.broadcast_arrays(np.asarray(got, float), np.asarray(want, float))
-    same = (got == want) | (np.isnan(got) & np.isnan(want))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        err = np.abs(got - want) / np.abs(want)
-    return np.where(same, 0.0, err)
 
 
 def _log_scale(v):
