@@ -13,7 +13,6 @@ one another see dispatchers, as they would with ``numba.njit``.
 
 from __future__ import annotations
 
-import sys
 import threading
 
 _PENDING: list = []
@@ -85,16 +84,11 @@ def _materialise() -> None:
         for kernel in pending:
             if kernel._dispatcher is None:
                 kernel._dispatcher = numba.njit(**kernel._options)(kernel.py_func)
+        # Every LazyKernel not yet compiled is pending (decoration appends under the
+        # lock), so each one found below already has its dispatcher.
         for kernel in pending:
             space = kernel.py_func.__globals__
             for name, value in list(space.items()):
                 if isinstance(value, LazyKernel):
-                    if value._dispatcher is None:  # pragma: no cover - defined elsewhere
-                        value._dispatcher = numba.njit(**value._options)(value.py_func)
                     space[name] = value._dispatcher
-        del _PENDING[:len(pending)]
-
-
-def loaded() -> bool:
-    """Whether numba has been imported by this process."""
-    return "numba" in sys.modules
+        _PENDING.clear()
