@@ -17,16 +17,23 @@ from noisecal.fit.select_kernel import nnls
 from noisecal.fit.simulate import RateModel, simulate_rate
 
 
-def test_nnls_equals_scipy():
-    """Random problems with active constraints and a zero column: the same solution as
-    scipy.optimize.nnls to 1e-9."""
-    rng = np.random.default_rng(3)
-    for k in range(300):
+def nnls_problems(count: int = 300, seed: int = 3):
+    """Seeded (M, b) least-squares problems, 6-24 rows, 1-6 columns, every seventh
+    with a zero first column."""
+    rng = np.random.default_rng(seed)
+    for k in range(count):
         rows, cols = rng.integers(6, 25), rng.integers(1, 7)
         M = rng.normal(size=(rows, cols))
         if k % 7 == 0:
             M[:, 0] = 0.0
-        b = rng.normal(size=rows)
+        yield M, rng.normal(size=rows)
+
+
+def test_nnls_equals_scipy():
+    """Random problems with active constraints and a zero column: the same solution as
+    scipy.optimize.nnls to 1e-9."""
+    for M, b in nnls_problems():
+        cols = M.shape[1]
         x = np.zeros(cols)
         nnls(M, b, x)
         ref, _ = optimize.nnls(M, b)

@@ -15,6 +15,7 @@ import noisecal.fit.ieee952 as F
 from noisecal import _native
 from noisecal.fit import select_kernel as SK
 
+from ..fit.test_select_kernel import nnls_problems
 from . import requires_native
 
 pytestmark = requires_native
@@ -84,13 +85,8 @@ def test_avar_covariance_is_the_same_with_the_c_kernels_off(monkeypatch):
 def test_nnls_equals_scipy_and_numba():
     """Random problems, some with a zero column: scipy.optimize.nnls (Lawson–Hanson) to
     1e-9, the numba kernel to 1e-13."""
-    rng = np.random.default_rng(3)
-    for k in range(300):
-        rows, cols = rng.integers(6, 25), rng.integers(1, 7)
-        M = rng.normal(size=(rows, cols))
-        if k % 7 == 0:
-            M[:, 0] = 0.0
-        b = rng.normal(size=rows)
+    for M, b in nnls_problems():
+        cols = M.shape[1]
         got = _calls().nnls(M, b, np.zeros(cols))
         ref, _ = optimize.nnls(M, b)
         np.testing.assert_allclose(got, ref, atol=1e-9 * max(1.0, np.abs(ref).max()))
